@@ -1,0 +1,139 @@
+import { readFileSync } from 'node:fs';
+import { fileURLToPath } from 'node:url';
+import { Ajv, type ErrorObject } from 'ajv';
+import { parse as parseYaml, YAMLParseError } from 'yaml';
+import { TapwardenError, oneLine } from '../errors.js';
+import { configSchema, type Config } from './schema.js';
+
+export const DEFAULT_CONFIG_PATH = fileURLToPath(new URL('../../config/default.yaml', import.meta.url));
+
+const ajv = new Ajv({ allErrors: false, strict: true, allowUnionTypes: true });
+const validate = ajv.compile<Config>(configSchema);
+
+type Plain = Record<string, unknown>;
+const isPlain = (v: unknown): v is Plain => typeof v === 'object' && v !== null && !Array.isArray(v);
+
+/** Overlays `over` on `base` key by key; an explicit null in `over` wins. */
+function merge(base: Plain, over: Plain): Plain {
+  const out: Plain = { ...base };
+  for (const [k, v] of Object.entries(over)) {
+    out[k] = isPlain(v) && isPlain(base[k]) ? merge(base[k] as Plain, v) : v;
+  }
+  return out;
+}
+
+function readYaml(file: string): unknown {
+  let text: string;
+  try {
+    text = readFileSync(file, 'utf8');
+  } catch (err) {
+    throw new TapwardenError('TW_ERR_CONFIG_READ', { file, reason: oneLine(err) });
+  }
+  try {
+    return parseYaml(text) ?? {};
+  } catch (err) {
+    const reason = err instanceof YAMLParseError ? err.message.split('\n')[0]! : oneLine(err);
+    throw new TapwardenError('TW_ERR_CONFIG_SYNTAX', { file, reason });
+  }
+}
+
+function keyOf(path: string): string {
+  return path.replace(/^\//, '').split('/').join('.');
+}
+
+function valueAt(data: unknown, path: string): unknown {
+  let v = data;
+  for (const part of path.split('/').filter(Boolean)) v = isPlain(v) ? v[part] : undefined;
+  return v;
+}
+
+function allowedOf(e: ErrorObject, parentSchema: Plain | undefined): string {
+  const p = e.params as Record<string, unknown>;
+  switch (e.keyword) {
+    case 'enum':
+      return (p['allowedValues'] as unknown[]).join(', ');
+    case 'type': {
+      const t = [parentSchema?.['type']].flat().filter(Boolean).join(' or ');
+      const lo = parentSchema?.['minimum'] ?? parentSchema?.['exclusiveMinimum'];
+      const hi = parentSchema?.['maximum'] ?? parentSchema?.['exclusiveMaximum'];
+      return lo !== undefined && hi !== undefined ? `${t} in ${lo}..${hi}` : t;
+    }
+    case 'minimum':
+      return `>= ${p['limit']}`;
+    case 'exclusiveMinimum':
+      return `> ${p['limit']}`;
+    case 'maximum':
+      return `<= ${p['limit']}`;
+    case 'exclusiveMaximum':
+      return `< ${p['limit']}`;
+    default:
+      return e.message ?? e.keyword;
+  }
+}
+
+/** One line naming the key, the value and what is allowed. */
+function describe(e: ErrorObject, data: unknown): string {
+  const p = e.params as Record<string, unknown>;
+  if (e.keyword === 'additionalProperties') {
+    const key = keyOf(`${e.instancePath}/${p['additionalProperty']}`);
+    const parent = valueAt(configSchema, e.schemaPath.replace(/^#/, '').replace(/\/additionalProperties$/, '')) as Plain;
+    return `${key} is not a known key; known keys here: ${Object.keys(parent['properties'] as Plain).join(', ')}`;
+  }
+  if (e.keyword === 'required') return `${keyOf(`${e.instancePath}/${p['missingProperty']}`)} is missing`;
+  const value = valueAt(data, e.instancePath);
+  const parent = valueAt(configSchema, e.schemaPath.replace(/^#/, '').replace(/\/[^/]+$/, '')) as Plain | undefined;
+  return `${keyOf(e.instancePath) || '(top level)'} = ${JSON.stringify(value)} is not allowed; allowed: ${allowedOf(e, parent)}`;
+}
+
+function deepFreeze<T>(v: T): T {
+  if (isPlain(v)) {
+    for (const x of Object.values(v)) deepFreeze(x);
+    Object.freeze(v);
+  }
+  return v;
+}
+
+/** Checks that need more than one key. */
+function crossChecks(c: Config): string | null {
+  const { filter, input, supervisor } = c;
+  if (input.referenceChannel === input.desiredChannel) {
+    return `input.desiredChannel = ${input.desiredChannel} is not allowed; allowed: a channel other than input.referenceChannel`;
+  }
+  if (filter.algorithm === 'nlms' && !(filter.step < 2)) {
+    return `filter.step = ${filter.step} is not allowed; allowed: 0 < step < 2 (the NLMS stability bound)`;
+  }
+  if ((filter.arithmetic === 'q15' || filter.arithmetic === 'q31') && Math.round(filter.step * 65536) === 0) {
+    return `filter.step = ${filter.step} is not allowed in ${filter.arithmetic}; allowed: >= 2^-17 (the step is held in Q16)`;
+  }
+  if (filter.algorithm === 'lms' && filter.step * filter.leak >= 1) {
+    return `filter.leak = ${filter.leak} is not allowed with step ${filter.step}; allowed: step * leak < 1`;
+  }
+  if (supervisor.crossfadeSeconds > supervisor.windowSeconds) {
+    return `supervisor.crossfadeSeconds = ${supervisor.crossfadeSeconds} is not allowed; allowed: <= supervisor.windowSeconds (${supervisor.windowSeconds})`;
+  }
+  return null;
+}
+
+/** Validates a merged configuration object; throws TW_ERR_CONFIG_VALUE naming the first bad key. */
+export function validateConfig(data: unknown, file: string): Config {
+  if (!validate(data)) {
+    throw new TapwardenError('TW_ERR_CONFIG_VALUE', { file, detail: describe(validate.errors![0]!, data) });
+  }
+  const problem = crossChecks(data);
+  if (problem !== null) throw new TapwardenError('TW_ERR_CONFIG_VALUE', { file, detail: problem });
+  return deepFreeze(data);
+}
+
+/** The embedded default overlaid with `file` (if given), validated and frozen. */
+export function loadConfig(file?: string, overrides: Plain = {}): Config {
+  const base = readYaml(DEFAULT_CONFIG_PATH) as Plain;
+  let data: unknown = base;
+  if (file !== undefined) {
+    const user = readYaml(file);
+    if (!isPlain(user)) {
+      throw new TapwardenError('TW_ERR_CONFIG_VALUE', { file, detail: 'the top level must be a mapping of sections (input, filter, supervisor, output)' });
+    }
+    data = merge(base, user);
+  }
+  return validateConfig(merge(data as Plain, overrides), file ?? DEFAULT_CONFIG_PATH);
+}

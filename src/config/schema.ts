@@ -1,0 +1,80 @@
+import type { Rounding } from '../dsp/fixed.js';
+import type { Algorithm, Arithmetic } from '../dsp/types.js';
+
+/** The applied configuration. config/default.yaml holds every default. */
+export interface Config {
+  readonly input: { readonly referenceChannel: number; readonly desiredChannel: number };
+  readonly filter: {
+    readonly algorithm: Algorithm;
+    readonly taps: number;
+    readonly step: number;
+    readonly delta: number;
+    readonly leak: number;
+    readonly leakShift: number | null;
+    readonly meanRemovalEvery: number | null;
+    readonly noiseInjectionDb: number | null;
+    readonly noiseSeed: number;
+    readonly arithmetic: Arithmetic;
+    readonly rounding: Rounding;
+    readonly weightLimit: number;
+  };
+  readonly supervisor: {
+    readonly windowSeconds: number;
+    readonly minCancellationDb: number;
+    readonly maxWeightMean: number;
+    readonly marginDb: number;
+    readonly passesRequired: number;
+    readonly rollbackAfter: number | null;
+    readonly crossfadeSeconds: number;
+    readonly minReferencePowerDb: number | null;
+  };
+  readonly output: { readonly signal: 'error' | 'estimate'; readonly encoding: OutputEncoding };
+}
+
+export type OutputEncoding = 'float32' | 'pcm16' | 'pcm24';
+
+const int = (minimum: number, maximum: number) => ({ type: 'integer', minimum, maximum });
+const num = (minimum: number, maximum: number) => ({ type: 'number', minimum, maximum });
+const nullable = (s: Record<string, unknown>) => ({ ...s, type: [s['type'], 'null'] });
+const section = (properties: Record<string, unknown>) => ({
+  type: 'object',
+  additionalProperties: false,
+  required: Object.keys(properties),
+  properties,
+});
+
+/** JSON Schema (draft 2020-12 subset) of the configuration; every key required after merge. */
+export const configSchema = section({
+  input: section({
+    referenceChannel: int(0, 255),
+    desiredChannel: int(0, 255),
+  }),
+  filter: section({
+    algorithm: { enum: ['lms', 'nlms'] },
+    taps: int(1, 65536),
+    step: { type: 'number', exclusiveMinimum: 0, maximum: 1000 },
+    delta: num(0, 1000),
+    leak: { type: 'number', minimum: 0, exclusiveMaximum: 1 },
+    leakShift: nullable(int(1, 31)),
+    meanRemovalEvery: nullable(int(1, 1e9)),
+    noiseInjectionDb: nullable(num(-200, 0)),
+    noiseSeed: int(0, 4294967295),
+    arithmetic: { enum: ['float64', 'float32', 'q15', 'q31'] },
+    rounding: { enum: ['nearest', 'truncate'] },
+    weightLimit: { type: 'number', exclusiveMinimum: 0, maximum: 1e30 },
+  }),
+  supervisor: section({
+    windowSeconds: num(0.001, 3600),
+    minCancellationDb: num(-200, 200),
+    maxWeightMean: { type: 'number', exclusiveMinimum: 0, maximum: 1e30 },
+    marginDb: num(0, 200),
+    passesRequired: int(1, 1e6),
+    rollbackAfter: nullable(int(1, 1e6)),
+    crossfadeSeconds: num(0, 3600),
+    minReferencePowerDb: nullable(num(-200, 200)),
+  }),
+  output: section({
+    signal: { enum: ['error', 'estimate'] },
+    encoding: { enum: ['float32', 'pcm16', 'pcm24'] },
+  }),
+});

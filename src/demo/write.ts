@@ -1,0 +1,45 @@
+import { copyFileSync, mkdirSync, writeFileSync } from 'node:fs';
+import { join } from 'node:path';
+import { DEFAULT_CONFIG_PATH } from '../config/load.js';
+import { TapwardenError, oneLine } from '../errors.js';
+import { WavWriter } from '../io/wav/writer.js';
+import { BENCH, generateBench } from './scenario.js';
+
+export const DEMO_RECORDING = 'bench-trial.wav';
+
+/** Configs written beside the recording: name, purpose, overrides of the default. */
+const DEMO_CONFIGS: ReadonlyArray<{ file: string; comment: string; body: string }> = [
+  {
+    file: 'q15-drift.yaml',
+    comment: '16-bit fixed point with truncating arithmetic and no leak: the weight mean drifts.',
+    body: 'filter:\n  algorithm: lms\n  step: 0.05\n  arithmetic: q15\n  rounding: truncate\n',
+  },
+  {
+    file: 'q15-leak.yaml',
+    comment: 'The same, with the fixed-point leak w <- w - (w >> 14): the weights stay bounded.',
+    body: 'filter:\n  algorithm: lms\n  step: 0.05\n  arithmetic: q15\n  rounding: truncate\n  leakShift: 14\n',
+  },
+];
+
+/** Writes the demo recording (16-bit stereo: reference, measurement), its truth and configs. */
+export function writeDemo(outDir: string): string[] {
+  try {
+    mkdirSync(outDir, { recursive: true });
+  } catch (err) {
+    throw new TapwardenError('TW_ERR_OUTPUT_WRITE', { file: outDir, reason: oneLine(err) });
+  }
+  const rec = generateBench(BENCH);
+  const wav = new WavWriter(join(outDir, DEMO_RECORDING), BENCH.sampleRate, 2, 'pcm16');
+  wav.write([rec.reference, rec.desired], rec.reference.length);
+  wav.close();
+  const truth = new WavWriter(join(outDir, 'bench-trial-signal.wav'), BENCH.sampleRate, 1, 'float32');
+  truth.write([rec.signal], rec.signal.length);
+  truth.close();
+  const written = [DEMO_RECORDING, 'bench-trial-signal.wav', 'bench-trial.yaml'];
+  copyFileSync(DEFAULT_CONFIG_PATH, join(outDir, 'bench-trial.yaml'));
+  for (const c of DEMO_CONFIGS) {
+    writeFileSync(join(outDir, c.file), `# ${c.comment}\n# Unset keys take config/default.yaml's values.\n${c.body}`);
+    written.push(c.file);
+  }
+  return written.map((f) => join(outDir, f));
+}

@@ -1,0 +1,262 @@
+import { DelayLine } from './delayLine.js';
+import {
+  Q15,
+  Q31,
+  WideAccumulator,
+  divRound,
+  mulShift,
+  quantize,
+  saturate,
+  scaleRound,
+  type QFormat,
+  type Rounding,
+} from './fixed.js';
+import { statsOf, type AdaptiveKernel, type AdaptiveSpec, type FirKernel, type WeightStats } from './types.js';
+
+/**
+ * The bit-exact fixed-point reference kernels (q15: 16-bit data and weights; q31: 32-bit).
+ * DEVELOPERS.md ("Fixed-point operator sequence") states the exact sequence of operations;
+ * any faster kernel must reproduce these results bit for bit.
+ *
+ * Registers: data, weights, error and update gain g are (f+1)-bit Qf values that saturate on
+ * every store; the FIR sum is exact (a wide accumulator) and rounded once; the normalized step
+ * s is Q16 in a 32-bit register; the reference energy E is Q30 and exact.
+ */
+
+const STEP_FRAC = 16;
+const ENERGY_FRAC = 30;
+const INT32_MAX = 2147483647;
+
+export function formatOf(arithmetic: string): QFormat {
+  if (arithmetic === 'q15') return Q15;
+  if (arithmetic === 'q31') return Q31;
+  throw new RangeError(`not a fixed-point arithmetic: ${arithmetic}`);
+}
+
+/** Exact FIR sum of weights and samples, rounded to the format; counts a clip in `sat`. */
+class Dot {
+  private readonly acc = new WideAccumulator();
+  clipped = false;
+
+  constructor(
+    private readonly fmt: QFormat,
+    private readonly rounding: Rounding,
+  ) {}
+
+  compute(w: Float64Array, buf: Float64Array, p: number, L: number): number {
+    const f = this.fmt.fracBits;
+    let raw: number;
+    if (f === 15) {
+      // 16 x 16-bit products are below 2^30: a double sums 2^23 of them exactly.
+      let acc = 0;
+      for (let k = 0; k < L; k++) acc += w[k]! * buf[p + k]!;
+      raw = this.rounding === 'nearest' ? Math.floor((acc + 16384) / 32768) : Math.floor(acc / 32768);
+    } else {
+      const a = this.acc;
+      a.clear();
+      for (let k = 0; k < L; k++) a.add(buf[p + k]!, w[k]!);
+      raw = a.result(f, this.rounding);
+    }
+    const v = saturate(raw, this.fmt);
+    this.clipped = v !== raw;
+    return v;
+  }
+}
+
+
+export class FixedAdaptiveKernel implements AdaptiveKernel {
+  adapting = true;
+  saturations = 0;
+  private readonly fmt: QFormat;
+  private readonly scale: number;
+  private readonly W: Float64Array;
+  private readonly evalLine: DelayLine<Float64Array>;
+  private readonly adaptLine: DelayLine<Float64Array>;
+  private readonly dot: Dot;
+  private readonly muQ: number;
+  private readonly deltaQ: number;
+  private readonly gammaQ: number;
+  private energy = 0;
+  private sinceMeanRemoval = 0;
+
+  constructor(readonly spec: AdaptiveSpec) {
+    this.fmt = formatOf(spec.arithmetic);
+    this.scale = 2 ** -this.fmt.fracBits;
+    this.W = new Float64Array(spec.taps);
+    this.evalLine = new DelayLine(spec.taps, (n) => new Float64Array(n));
+    this.adaptLine = new DelayLine(spec.taps, (n) => new Float64Array(n));
+    this.dot = new Dot(this.fmt, spec.rounding);
+    this.muQ = Math.round(spec.step * 2 ** STEP_FRAC);
+    this.deltaQ = Math.max(1, Math.round(spec.delta * 2 ** ENERGY_FRAC));
+    this.gammaQ = Math.round(spec.leak * 2 ** this.fmt.fracBits);
+  }
+
+  /** One sample's share of the Q30 energy: x^2 rescaled from Q(2f) to Q30. */
+  private energyTerm(v: number): number {
+    const shift = 2 * this.fmt.fracBits - ENERGY_FRAC;
+    return shift === 0 ? v * v : mulShift(v, v, shift, this.spec.rounding);
+  }
+
+  private clip(v: number): number {
+    const s = saturate(v, this.fmt);
+    if (s !== v) this.saturations++;
+    return s;
+  }
+
+  private q(v: number): number {
+    return this.clip(scaleRound(v, this.fmt.fracBits, this.spec.rounding));
+  }
+
+  run(
+    x: Float64Array,
+    d: Float64Array,
+    noise: Float64Array | null,
+    y: Float64Array,
+    e: Float64Array,
+    start: number,
+    end: number,
+  ): void {
+    const { taps: L, algorithm, leakShift, meanRemovalEvery, rounding } = this.spec;
+    const f = this.fmt.fracBits;
+    const W = this.W;
+    const dot = this.dot;
+    for (let n = start; n < end; n++) {
+      const xq = this.q(x[n]!);
+      const dq = this.q(d[n]!);
+      const evOld = this.evalLine.push(xq);
+      let line = this.evalLine;
+      let old = evOld;
+      if (noise !== null) {
+        old = this.adaptLine.push(this.clip(xq + this.q(noise[n]!)));
+        line = this.adaptLine;
+      }
+      this.energy += this.energyTerm(line.buf[line.pos]!) - this.energyTerm(old);
+
+      const yEval = dot.compute(W, this.evalLine.buf, this.evalLine.pos, L);
+      if (dot.clipped) this.saturations++;
+      const eEval = this.clip(dq - yEval);
+      y[n] = yEval * this.scale;
+      e[n] = eEval * this.scale;
+      if (!this.adapting) continue;
+
+      let err = eEval;
+      if (line !== this.evalLine) {
+        const yA = dot.compute(W, line.buf, line.pos, L);
+        if (dot.clipped) this.saturations++;
+        err = this.clip(dq - yA);
+      }
+      const s =
+        algorithm === 'nlms'
+          ? Math.min(INT32_MAX, divRound(this.muQ * 2 ** ENERGY_FRAC, this.deltaQ + this.energy, rounding))
+          : this.muQ;
+      const g = this.clip(mulShift(s, err, STEP_FRAC, rounding));
+      const lf = this.gammaQ === 0 ? 0 : this.clip(mulShift(s, this.gammaQ, STEP_FRAC, rounding));
+      const buf = line.buf;
+      const p = line.pos;
+      for (let k = 0; k < L; k++) {
+        const wk = W[k]!;
+        let v = wk + mulShift(g, buf[p + k]!, f, rounding);
+        if (lf !== 0) v -= mulShift(lf, wk, f, rounding);
+        if (leakShift !== null) v -= Math.floor(wk / 2 ** leakShift);
+        W[k] = this.clip(v);
+      }
+      if (meanRemovalEvery !== null && ++this.sinceMeanRemoval >= meanRemovalEvery) {
+        this.sinceMeanRemoval = 0;
+        let sum = 0;
+        for (let k = 0; k < L; k++) sum += W[k]!;
+        const m = divRound(sum, L, rounding);
+        for (let k = 0; k < L; k++) W[k] = this.clip(W[k]! - m);
+      }
+    }
+  }
+
+  getWeights(): Float64Array {
+    return this.W.map((v) => v * this.scale);
+  }
+
+  setWeights(w: ArrayLike<number>): void {
+    for (let k = 0; k < this.W.length; k++) this.W[k] = this.q(w[k] ?? 0);
+  }
+
+  /** The raw integer weights (Qf). */
+  rawWeights(): Float64Array {
+    return Float64Array.from(this.W);
+  }
+
+  reset(): void {
+    this.W.fill(0);
+    this.evalLine.clear();
+    this.adaptLine.clear();
+    this.energy = 0;
+    this.sinceMeanRemoval = 0;
+  }
+
+  weightStats(out: WeightStats): WeightStats {
+    return statsOf(this.W, this.scale, out);
+  }
+}
+
+export class FixedFirKernel implements FirKernel {
+  saturations = 0;
+  private readonly fmt: QFormat;
+  private readonly scale: number;
+  private readonly W: Float64Array;
+  private readonly line: DelayLine<Float64Array>;
+  private readonly dot: Dot;
+
+  constructor(private readonly spec: AdaptiveSpec) {
+    this.fmt = formatOf(spec.arithmetic);
+    this.scale = 2 ** -this.fmt.fracBits;
+    this.W = new Float64Array(spec.taps);
+    this.line = new DelayLine(spec.taps, (n) => new Float64Array(n));
+    this.dot = new Dot(this.fmt, spec.rounding);
+  }
+
+  get taps(): number {
+    return this.W.length;
+  }
+
+  run(x: Float64Array, d: Float64Array, y: Float64Array, e: Float64Array, start: number, end: number): void {
+    const L = this.W.length;
+    for (let n = start; n < end; n++) {
+      this.line.push(this.q(x[n]!));
+      const v = this.dot.compute(this.W, this.line.buf, this.line.pos, L);
+      if (this.dot.clipped) this.saturations++;
+      y[n] = v * this.scale;
+      e[n] = this.clip(this.q(d[n]!) - v) * this.scale;
+    }
+  }
+
+  private clip(v: number): number {
+    const s = saturate(v, this.fmt);
+    if (s !== v) this.saturations++;
+    return s;
+  }
+
+  private q(v: number): number {
+    return this.clip(scaleRound(v, this.fmt.fracBits, this.spec.rounding));
+  }
+
+  getWeights(): Float64Array {
+    return this.W.map((v) => v * this.scale);
+  }
+
+  setWeights(w: ArrayLike<number>): void {
+    for (let k = 0; k < this.W.length; k++) this.W[k] = quantize(w[k] ?? 0, this.fmt, this.spec.rounding);
+  }
+
+  copyHistoryFrom(other: FirKernel): void {
+    const src = (other as FixedFirKernel).line;
+    this.line.buf.set(src.buf);
+    this.line.pos = src.pos;
+  }
+
+  reset(): void {
+    this.W.fill(0);
+    this.line.clear();
+  }
+
+  weightStats(out: WeightStats): WeightStats {
+    return statsOf(this.W, this.scale, out);
+  }
+}

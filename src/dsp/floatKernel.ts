@@ -1,0 +1,174 @@
+import { DelayLine } from './delayLine.js';
+import { statsOf, type AdaptiveKernel, type AdaptiveSpec, type FirKernel, type WeightStats } from './types.js';
+
+const identity = (v: number): number => v;
+
+/**
+ * The floating-point reference kernels. float64 keeps everything in doubles; float32 rounds
+ * every stored value (inputs, outputs, weights, step) to single precision while sums and
+ * products are formed in double: the "wide accumulator" of an FPU with fused or extended
+ * accumulation.
+ */
+function storeFor(spec: { arithmetic: string }): (v: number) => number {
+  return spec.arithmetic === 'float32' ? Math.fround : identity;
+}
+
+export class FloatAdaptiveKernel implements AdaptiveKernel {
+  adapting = true;
+  saturations = 0;
+  private readonly w: Float64Array;
+  private readonly adaptLine: DelayLine<Float64Array>;
+  private readonly evalLine: DelayLine<Float64Array>;
+  private readonly store: (v: number) => number;
+  private sinceMeanRemoval = 0;
+
+  constructor(readonly spec: AdaptiveSpec) {
+    this.w = new Float64Array(spec.taps);
+    this.adaptLine = new DelayLine(spec.taps, (n) => new Float64Array(n));
+    this.evalLine = new DelayLine(spec.taps, (n) => new Float64Array(n));
+    this.store = storeFor(spec);
+  }
+
+  run(
+    x: Float64Array,
+    d: Float64Array,
+    noise: Float64Array | null,
+    y: Float64Array,
+    e: Float64Array,
+    start: number,
+    end: number,
+  ): void {
+    const { taps: L, algorithm, step, delta, leak, leakShift, meanRemovalEvery, weightLimit } = this.spec;
+    const q = this.store;
+    const w = this.w;
+    const shiftFactor = leakShift === null ? 0 : 2 ** -leakShift;
+    const nlms = algorithm === 'nlms';
+    for (let n = start; n < end; n++) {
+      const xn = q(x[n]!);
+      const dn = q(d[n]!);
+      this.evalLine.push(xn);
+      const ev = this.evalLine.buf;
+      const ep = this.evalLine.pos;
+      let line = ev;
+      let p = ep;
+      if (noise !== null) {
+        this.adaptLine.push(q(xn + q(noise[n]!)));
+        line = this.adaptLine.buf;
+        p = this.adaptLine.pos;
+      }
+      // Output of the current weights on the un-noised reference.
+      let accEval = 0;
+      for (let k = 0; k < L; k++) accEval += w[k]! * ev[ep + k]!;
+      const yEval = q(accEval);
+      y[n] = yEval;
+      e[n] = q(dn - yEval);
+      if (!this.adapting) continue;
+
+      // The error the filter adapts on: on the noised reference when injecting noise.
+      let acc = accEval;
+      let energy = 0;
+      if (line !== ev || nlms) {
+        acc = 0;
+        for (let k = 0; k < L; k++) {
+          const v = line[p + k]!;
+          acc += w[k]! * v;
+          energy += v * v;
+        }
+      }
+      const err = q(dn - q(acc));
+      const mu = nlms ? step / (delta + energy) : step;
+      const g = q(mu * err);
+      const c = q(mu * leak) + shiftFactor;
+      for (let k = 0; k < L; k++) {
+        let v = q(w[k]! - c * w[k]! + g * line[p + k]!);
+        if (!(v <= weightLimit && v >= -weightLimit)) {
+          v = v > 0 ? weightLimit : v < 0 ? -weightLimit : 0;
+          this.saturations++;
+        }
+        w[k] = v;
+      }
+      if (meanRemovalEvery !== null && ++this.sinceMeanRemoval >= meanRemovalEvery) {
+        this.sinceMeanRemoval = 0;
+        let sum = 0;
+        for (let k = 0; k < L; k++) sum += w[k]!;
+        const m = sum / L;
+        for (let k = 0; k < L; k++) w[k] = q(w[k]! - m);
+      }
+    }
+  }
+
+  getWeights(): Float64Array {
+    return Float64Array.from(this.w);
+  }
+
+  setWeights(w: ArrayLike<number>): void {
+    for (let k = 0; k < this.w.length; k++) this.w[k] = this.store(w[k] ?? 0);
+  }
+
+  reset(): void {
+    this.w.fill(0);
+    this.adaptLine.clear();
+    this.evalLine.clear();
+    this.sinceMeanRemoval = 0;
+  }
+
+  weightStats(out: WeightStats): WeightStats {
+    return statsOf(this.w, 1, out);
+  }
+}
+
+export class FloatFirKernel implements FirKernel {
+  readonly saturations = 0;
+  private readonly w: Float64Array;
+  private readonly line: DelayLine<Float64Array>;
+  private readonly store: (v: number) => number;
+
+  constructor(spec: AdaptiveSpec) {
+    this.w = new Float64Array(spec.taps);
+    this.line = new DelayLine(spec.taps, (n) => new Float64Array(n));
+    this.store = storeFor(spec);
+  }
+
+  get taps(): number {
+    return this.w.length;
+  }
+
+  run(x: Float64Array, d: Float64Array, y: Float64Array, e: Float64Array, start: number, end: number): void {
+    const q = this.store;
+    const w = this.w;
+    const L = w.length;
+    for (let n = start; n < end; n++) {
+      this.line.push(q(x[n]!));
+      const buf = this.line.buf;
+      const p = this.line.pos;
+      let acc = 0;
+      for (let k = 0; k < L; k++) acc += w[k]! * buf[p + k]!;
+      const yn = q(acc);
+      y[n] = yn;
+      e[n] = q(q(d[n]!) - yn);
+    }
+  }
+
+  getWeights(): Float64Array {
+    return Float64Array.from(this.w);
+  }
+
+  setWeights(w: ArrayLike<number>): void {
+    for (let k = 0; k < this.w.length; k++) this.w[k] = this.store(w[k] ?? 0);
+  }
+
+  copyHistoryFrom(other: FirKernel): void {
+    const src = (other as FloatFirKernel).line;
+    this.line.buf.set(src.buf);
+    this.line.pos = src.pos;
+  }
+
+  reset(): void {
+    this.w.fill(0);
+    this.line.clear();
+  }
+
+  weightStats(out: WeightStats): WeightStats {
+    return statsOf(this.w, 1, out);
+  }
+}

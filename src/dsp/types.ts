@@ -1,0 +1,94 @@
+import type { Rounding } from './fixed.js';
+
+export type Arithmetic = 'float64' | 'float32' | 'q15' | 'q31';
+export type Algorithm = 'lms' | 'nlms';
+
+export const ARITHMETICS: readonly Arithmetic[] = ['float64', 'float32', 'q15', 'q31'];
+export const ALGORITHMS: readonly Algorithm[] = ['lms', 'nlms'];
+
+/** Everything a kernel needs to know; units are real (full scale = 1.0). */
+export interface AdaptiveSpec {
+  readonly algorithm: Algorithm;
+  readonly taps: number;
+  /** mu: the LMS step, or the NLMS normalized step (0 < mu < 2). */
+  readonly step: number;
+  /** NLMS regularization added to ||x||^2. */
+  readonly delta: number;
+  /** gamma: w <- (1 - mu_n gamma) w + mu_n e x. */
+  readonly leak: number;
+  /** k: w <- w - (w >> k) each sample; null for none. */
+  readonly leakShift: number | null;
+  /** Subtract the weight mean every N samples; null for never. */
+  readonly meanRemovalEvery: number | null;
+  readonly arithmetic: Arithmetic;
+  readonly rounding: Rounding;
+  /** Largest |w| a float store may hold (fixed point is bounded by its format). */
+  readonly weightLimit: number;
+}
+
+export interface WeightStats {
+  mean: number;
+  norm: number;
+  maxAbs: number;
+}
+
+/**
+ * One adaptive transversal filter. Tap k multiplies x[n-k]. `run` processes samples
+ * [start, end) of the given arrays, allocates nothing and never throws.
+ */
+export interface AdaptiveKernel {
+  readonly spec: AdaptiveSpec;
+  /** Cleared to stop adaptation; filtering goes on. */
+  adapting: boolean;
+  /** Stores that clipped (weights, outputs, inputs), since creation. */
+  readonly saturations: number;
+  /**
+   * x: reference, d: desired, noise: added to the reference the filter adapts on (null: none).
+   * y, e receive the estimate and d - y of the current weights on the un-noised reference.
+   */
+  run(
+    x: Float64Array,
+    d: Float64Array,
+    noise: Float64Array | null,
+    y: Float64Array,
+    e: Float64Array,
+    start: number,
+    end: number,
+  ): void;
+  getWeights(): Float64Array;
+  setWeights(w: ArrayLike<number>): void;
+  /** Clears the delay line(s) and weights. */
+  reset(): void;
+  weightStats(out: WeightStats): WeightStats;
+}
+
+/** A fixed-weight transversal filter in the same arithmetic: the clean path's filter. */
+export interface FirKernel {
+  readonly taps: number;
+  readonly saturations: number;
+  /** Filters x into y and writes e = d - y, over samples [start, end). */
+  run(x: Float64Array, d: Float64Array, y: Float64Array, e: Float64Array, start: number, end: number): void;
+  getWeights(): Float64Array;
+  setWeights(w: ArrayLike<number>): void;
+  /** Takes over another filter's delay line (same arithmetic and length). */
+  copyHistoryFrom(other: FirKernel): void;
+  reset(): void;
+  weightStats(out: WeightStats): WeightStats;
+}
+
+export function statsOf(w: ArrayLike<number>, scale: number, out: WeightStats): WeightStats {
+  let sum = 0;
+  let sq = 0;
+  let max = 0;
+  for (let k = 0; k < w.length; k++) {
+    const v = w[k]! * scale;
+    sum += v;
+    sq += v * v;
+    const a = v < 0 ? -v : v;
+    if (a > max) max = a;
+  }
+  out.mean = sum / w.length;
+  out.norm = Math.sqrt(sq);
+  out.maxAbs = max;
+  return out;
+}

@@ -1,0 +1,334 @@
+import { createAdaptiveKernel, createFirKernel } from '../dsp/kernels.js';
+import { GaussianNoise } from '../dsp/noise.js';
+import { cancellationDb, powerDb, sigmaOfDb } from '../dsp/level.js';
+import type { AdaptiveKernel, AdaptiveSpec, FirKernel, WeightStats } from '../dsp/types.js';
+import { INITIAL_STATE, decide, type Decision, type Policy, type SupervisorState } from './supervisor.js';
+
+export interface EngineSettings {
+  readonly sampleRate: number;
+  readonly filter: AdaptiveSpec & { readonly noiseInjectionDb: number | null; readonly noiseSeed: number };
+  readonly supervisor: Policy & { readonly windowSeconds: number; readonly crossfadeSeconds: number };
+  /** What the output streams carry: d - y, or y. */
+  readonly outputSignal: 'error' | 'estimate';
+}
+
+export interface PathFigures {
+  errorPowerDb: number;
+  cancellationDb: number;
+  weightMean: number;
+  weightNorm: number;
+  maxAbsWeight: number;
+  /** Clipped stores during the window. */
+  saturations: number;
+}
+
+export interface WindowReport {
+  index: number;
+  /** First sample after the window (the window is [endSample - length, endSample)). */
+  endSample: number;
+  timeSeconds: number;
+  referencePowerDb: number;
+  desiredPowerDb: number;
+  nonFiniteSamples: number;
+  adaptive: PathFigures;
+  clean: PathFigures;
+  decision: Decision;
+  /** Version of the clean path's weights after this window's decision. */
+  cleanVersion: number;
+}
+
+/** An immutable copy of weights handed to the clean path. */
+export interface WeightSnapshot {
+  readonly version: number;
+  readonly weights: Float64Array;
+  /** Sample index at which the clean path took them. */
+  readonly sample: number;
+  readonly reason: HandoffReason;
+}
+
+export type HandoffReason = 'supervisor' | 'forced' | 'restored';
+
+export interface EngineListener {
+  onWindow?(report: WindowReport): void;
+  onHandoff?(snapshot: WeightSnapshot): void;
+  onRollback?(sample: number, reason: 'supervisor' | 'forced'): void;
+}
+
+const CHUNK = 1024;
+
+/**
+ * The dual-path engine: an adaptive path that learns on the (optionally noise-injected)
+ * reference, and a clean path that filters the un-noised reference with weights it receives
+ * only by handoff. Input is consumed in chunks cut at window boundaries, so decisions and
+ * outputs do not depend on how callers block the stream.
+ */
+export class DualPathEngine {
+  readonly windowSamples: number;
+  readonly crossfadeSamples: number;
+  private readonly adaptive: AdaptiveKernel;
+  private readonly clean: FirKernel;
+  private readonly fading: FirKernel;
+  private readonly noiseGen: GaussianNoise | null;
+  private readonly noiseSigma: number;
+  private readonly x = new Float64Array(CHUNK);
+  private readonly d = new Float64Array(CHUNK);
+  private readonly noise = new Float64Array(CHUNK);
+  private readonly yA = new Float64Array(CHUNK);
+  private readonly eA = new Float64Array(CHUNK);
+  private readonly yC = new Float64Array(CHUNK);
+  private readonly eC = new Float64Array(CHUNK);
+  private readonly yOld = new Float64Array(CHUNK);
+  private readonly eOld = new Float64Array(CHUNK);
+  private readonly wsA: WeightStats = { mean: 0, norm: 0, maxAbs: 0 };
+  private readonly wsC: WeightStats = { mean: 0, norm: 0, maxAbs: 0 };
+
+  private supervisorState: SupervisorState = INITIAL_STATE;
+  private handoffsFrozen = false;
+  private sample = 0;
+  private windowIndex = 0;
+  private inWindow = 0;
+  private sumX = 0;
+  private sumD = 0;
+  private sumEA = 0;
+  private sumEC = 0;
+  private nonFiniteWindow = 0;
+  private satA0 = 0;
+  private satC0 = 0;
+  private fadePos = 0;
+  private fadeActive = false;
+  private cleanSnapshot: WeightSnapshot;
+  /** Non-finite input samples replaced by zero, since the start. */
+  nonFiniteSamples = 0;
+
+  constructor(
+    readonly settings: EngineSettings,
+    private readonly listener: EngineListener = {},
+  ) {
+    const { sampleRate, filter, supervisor } = settings;
+    this.windowSamples = Math.max(1, Math.round(supervisor.windowSeconds * sampleRate));
+    this.crossfadeSamples = Math.max(0, Math.round(supervisor.crossfadeSeconds * sampleRate));
+    this.adaptive = createAdaptiveKernel(filter);
+    this.clean = createFirKernel(filter);
+    this.fading = createFirKernel(filter);
+    this.noiseGen = filter.noiseInjectionDb === null ? null : new GaussianNoise(filter.noiseSeed);
+    this.noiseSigma = filter.noiseInjectionDb === null ? 0 : sigmaOfDb(filter.noiseInjectionDb);
+    this.cleanSnapshot = { version: 0, weights: new Float64Array(filter.taps), sample: 0, reason: 'restored' };
+  }
+
+  /** Samples consumed since the start. */
+  get samples(): number {
+    return this.sample;
+  }
+
+  get adaptiveSaturations(): number {
+    return this.adaptive.saturations;
+  }
+
+  get cleanSaturations(): number {
+    return this.clean.saturations + this.fading.saturations;
+  }
+
+  get cleanWeights(): WeightSnapshot {
+    return this.cleanSnapshot;
+  }
+
+  adaptiveWeights(): Float64Array {
+    return this.adaptive.getWeights();
+  }
+
+  get adapting(): boolean {
+    return this.adaptive.adapting;
+  }
+
+  set adapting(on: boolean) {
+    this.adaptive.adapting = on;
+  }
+
+  get handoffsHeld(): boolean {
+    return this.handoffsFrozen;
+  }
+
+  set handoffsHeld(on: boolean) {
+    this.handoffsFrozen = on;
+  }
+
+  /**
+   * Processes n samples of reference and desired; writes the clean path's and the adaptive
+   * path's output streams. Non-finite inputs are counted and replaced by zero.
+   */
+  process(ref: Float64Array, des: Float64Array, cleanOut: Float64Array, adaptiveOut: Float64Array, n: number): void {
+    let i = 0;
+    while (i < n) {
+      const m = Math.min(n - i, CHUNK, this.windowSamples - this.inWindow);
+      this.processChunk(ref, des, cleanOut, adaptiveOut, i, m);
+      i += m;
+      this.inWindow += m;
+      this.sample += m;
+      if (this.inWindow === this.windowSamples) this.closeWindow();
+    }
+  }
+
+  private processChunk(
+    ref: Float64Array,
+    des: Float64Array,
+    cleanOut: Float64Array,
+    adaptiveOut: Float64Array,
+    offset: number,
+    m: number,
+  ): void {
+    const { x, d, noise, yA, eA, yC, eC } = this;
+    let bad = 0;
+    for (let j = 0; j < m; j++) {
+      let xv = ref[offset + j]!;
+      let dv = des[offset + j]!;
+      if (!Number.isFinite(xv)) {
+        xv = 0;
+        bad++;
+      }
+      if (!Number.isFinite(dv)) {
+        dv = 0;
+        bad++;
+      }
+      x[j] = xv;
+      d[j] = dv;
+    }
+    this.nonFiniteWindow += bad;
+    this.nonFiniteSamples += bad;
+    if (this.noiseGen !== null) this.noiseGen.fill(noise, this.noiseSigma, 0, m);
+
+    this.adaptive.run(x, d, this.noiseGen === null ? null : noise, yA, eA, 0, m);
+    this.clean.run(x, d, yC, eC, 0, m);
+    if (this.fadeActive) this.crossfade(m);
+
+    const estimate = this.settings.outputSignal === 'estimate';
+    let sx = 0;
+    let sd = 0;
+    let sa = 0;
+    let sc = 0;
+    for (let j = 0; j < m; j++) {
+      sx += x[j]! * x[j]!;
+      sd += d[j]! * d[j]!;
+      sa += eA[j]! * eA[j]!;
+      sc += eC[j]! * eC[j]!;
+      cleanOut[offset + j] = estimate ? yC[j]! : eC[j]!;
+      adaptiveOut[offset + j] = estimate ? yA[j]! : eA[j]!;
+    }
+    this.sumX += sx;
+    this.sumD += sd;
+    this.sumEA += sa;
+    this.sumEC += sc;
+  }
+
+  /** Blends the previous weights' output into the new one's with a raised-cosine ramp. */
+  private crossfade(m: number): void {
+    const { d, yC, eC, yOld, eOld } = this;
+    this.fading.run(this.x, d, yOld, eOld, 0, m);
+    const len = this.crossfadeSamples;
+    for (let j = 0; j < m && this.fadePos < len; j++, this.fadePos++) {
+      const a = 0.5 - 0.5 * Math.cos((Math.PI * (this.fadePos + 1)) / (len + 1));
+      const y = yOld[j]! + a * (yC[j]! - yOld[j]!);
+      yC[j] = y;
+      eC[j] = d[j]! - y;
+    }
+    if (this.fadePos >= len) this.fadeActive = false;
+  }
+
+  private closeWindow(): void {
+    const n = this.windowSamples;
+    const pd = this.sumD / n;
+    const adaptive = this.figures(this.adaptive.weightStats(this.wsA), this.sumEA / n, pd, this.adaptive.saturations - this.satA0);
+    const clean = this.figures(this.clean.weightStats(this.wsC), this.sumEC / n, pd, this.cleanSaturations - this.satC0);
+    const nonFinite = this.nonFiniteWindow;
+    const referencePowerDb = powerDb(this.sumX / n);
+    const { decision, state } = decide(
+      this.supervisorState,
+      {
+        referencePowerDb,
+        adaptiveErrorPowerDb: adaptive.errorPowerDb,
+        adaptiveCancellationDb: adaptive.cancellationDb,
+        cleanErrorPowerDb: clean.errorPowerDb,
+        adaptiveWeightMean: adaptive.weightMean,
+        adaptiveSaturations: adaptive.saturations,
+        nonFiniteSamples: nonFinite,
+      },
+      this.settings.supervisor,
+      this.handoffsFrozen,
+    );
+    this.supervisorState = state;
+    if (decision.outcome === 'accepted') this.handoff('supervisor');
+    if (decision.rollback) this.rollback('supervisor');
+    const report: WindowReport = {
+      index: this.windowIndex,
+      endSample: this.sample,
+      timeSeconds: this.sample / this.settings.sampleRate,
+      referencePowerDb,
+      desiredPowerDb: powerDb(pd),
+      nonFiniteSamples: nonFinite,
+      adaptive,
+      clean,
+      decision,
+      cleanVersion: this.cleanSnapshot.version,
+    };
+    this.windowIndex++;
+    this.inWindow = 0;
+    this.sumX = this.sumD = this.sumEA = this.sumEC = 0;
+    this.nonFiniteWindow = 0;
+    this.satA0 = this.adaptive.saturations;
+    this.satC0 = this.cleanSaturations;
+    this.listener.onWindow?.(report);
+  }
+
+  private figures(ws: WeightStats, pe: number, pd: number, saturations: number): PathFigures {
+    return {
+      errorPowerDb: powerDb(pe),
+      cancellationDb: cancellationDb(pd, pe),
+      weightMean: ws.mean,
+      weightNorm: ws.norm,
+      maxAbsWeight: ws.maxAbs,
+      saturations,
+    };
+  }
+
+  /** Copies the adaptive weights to the clean path, crossfading its output. */
+  handoff(reason: HandoffReason): WeightSnapshot {
+    return this.installClean(this.adaptive.getWeights(), reason);
+  }
+
+  /** Gives both paths the given weights (e.g. restored from a snapshot). */
+  restore(weights: ArrayLike<number>): WeightSnapshot {
+    this.adaptive.setWeights(weights);
+    return this.installClean(Float64Array.from(weights), 'restored');
+  }
+
+  /** Restarts the adaptive path from the clean path's weights. */
+  rollback(reason: 'supervisor' | 'forced'): void {
+    this.adaptive.setWeights(this.cleanSnapshot.weights);
+    this.supervisorState = INITIAL_STATE;
+    this.listener.onRollback?.(this.sample, reason);
+  }
+
+  /** Clears both paths' weights and histories and the supervisor's counts. */
+  reset(): void {
+    this.adaptive.reset();
+    this.clean.reset();
+    this.fading.reset();
+    this.fadeActive = false;
+    this.supervisorState = INITIAL_STATE;
+    this.cleanSnapshot = { ...this.cleanSnapshot, version: this.cleanSnapshot.version + 1, weights: new Float64Array(this.settings.filter.taps), sample: this.sample };
+  }
+
+  private installClean(weights: Float64Array, reason: HandoffReason): WeightSnapshot {
+    if (this.crossfadeSamples > 0 && this.sample > 0) {
+      this.fading.setWeights(this.clean.getWeights());
+      this.fading.copyHistoryFrom(this.clean);
+      this.fadePos = 0;
+      this.fadeActive = true;
+    }
+    this.clean.setWeights(weights);
+    // The snapshot holds what the clean filter really stores (quantized in fixed point).
+    const stored = this.clean.getWeights();
+    this.cleanSnapshot = { version: this.cleanSnapshot.version + 1, weights: stored, sample: this.sample, reason };
+    this.listener.onHandoff?.(this.cleanSnapshot);
+    return this.cleanSnapshot;
+  }
+}
