@@ -2,6 +2,7 @@ import { readFileSync } from 'node:fs';
 import { fileURLToPath } from 'node:url';
 import { Ajv, type ErrorObject } from 'ajv';
 import { parse as parseYaml, YAMLParseError } from 'yaml';
+import { NLMS_STEP_BOUND } from '../dsp/bounds.js';
 import { TapwardenError, oneLine } from '../errors.js';
 import { configSchema, type Config } from './schema.js';
 
@@ -99,8 +100,8 @@ function crossChecks(c: Config): string | null {
   if (input.referenceChannel === input.desiredChannel) {
     return `input.desiredChannel = ${input.desiredChannel} is not allowed; allowed: a channel other than input.referenceChannel`;
   }
-  if (filter.algorithm === 'nlms' && !(filter.step < 2)) {
-    return `filter.step = ${filter.step} is not allowed; allowed: 0 < step < 2 (the NLMS stability bound)`;
+  if (filter.algorithm === 'nlms' && !(filter.step < NLMS_STEP_BOUND)) {
+    return `filter.step = ${filter.step} is not allowed; allowed: 0 < step < ${NLMS_STEP_BOUND} (the NLMS stability bound)`;
   }
   if ((filter.arithmetic === 'q15' || filter.arithmetic === 'q31') && Math.round(filter.step * 65536) === 0) {
     return `filter.step = ${filter.step} is not allowed in ${filter.arithmetic}; allowed: >= 2^-17 (the step is held in Q16)`;

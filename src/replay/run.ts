@@ -2,6 +2,7 @@ import { mkdirSync, renameSync, writeFileSync } from 'node:fs';
 import { join } from 'node:path';
 import { autocorrelation, toeplitzLambdaMax } from '../analysis/correlation.js';
 import type { Config } from '../config/schema.js';
+import { lmsStepBound } from '../dsp/bounds.js';
 import { DualPathEngine } from '../engine/dualPath.js';
 import { engineSettingsOf } from '../engine/settings.js';
 import { TapwardenError, oneLine } from '../errors.js';
@@ -48,7 +49,7 @@ export function checkLmsStep(file: string, config: Config, configFile: string): 
     reader.read([config.input.referenceChannel], [x]);
     for (let i = 0; i < n; i++) if (!Number.isFinite(x[i])) x[i] = 0;
     const lambdaMax = toeplitzLambdaMax(autocorrelation(x, taps));
-    const bound = 2 / (lambdaMax + leak);
+    const bound = lmsStepBound(lambdaMax, leak);
     if (step >= bound) {
       throw new TapwardenError('TW_ERR_CONFIG_STEP_BOUND', {
         file: configFile,
