@@ -35,34 +35,32 @@ export async function main(argv: string[]): Promise<number> {
     process.stdout.write(`${VERSION}\n`);
     return 0;
   }
-  const cmd = COMMANDS[name];
-  if (cmd === undefined) {
-    process.stderr.write(`tapwarden: unknown command ${JSON.stringify(name)}; commands: ${Object.keys(COMMANDS).join(', ')}\n`);
-    return 2;
-  }
-  let parsed;
   try {
-    parsed = parseArgs({
-      args: rest,
-      options: { ...cmd.options, help: { type: 'boolean', short: 'h' } },
-      allowPositionals: true,
-      strict: true,
-    });
-  } catch (err) {
-    process.stderr.write(`tapwarden ${name}: ${oneLine(err).replace(/\. To specify.*$/, '')}; see 'tapwarden ${name} --help'\n`);
-    return 2;
-  }
-  if (parsed.values['help']) {
-    process.stdout.write(cmd.usage + '\n');
-    return 0;
-  }
-  const [min, max] = cmd.positionals;
-  if (parsed.positionals.length < min || parsed.positionals.length > max) {
-    const expected = min === max ? `${min}` : `${min} to ${max}`;
-    process.stderr.write(`tapwarden ${name}: expected ${expected} argument(s), got ${parsed.positionals.length}; see 'tapwarden ${name} --help'\n`);
-    return 2;
-  }
-  try {
+    const cmd = COMMANDS[name];
+    if (cmd === undefined) {
+      throw new TapwardenError('TW_ERR_USAGE', { detail: `unknown command ${JSON.stringify(name)}; commands: ${Object.keys(COMMANDS).join(', ')}` });
+    }
+    const see = `see 'tapwarden ${name} --help'`;
+    let parsed;
+    try {
+      parsed = parseArgs({
+        args: rest,
+        options: { ...cmd.options, help: { type: 'boolean', short: 'h' } },
+        allowPositionals: true,
+        strict: true,
+      });
+    } catch (err) {
+      throw new TapwardenError('TW_ERR_USAGE', { detail: `${name}: ${oneLine(err).replace(/\. To specify.*$/, '')}; ${see}` });
+    }
+    if (parsed.values['help']) {
+      process.stdout.write(cmd.usage + '\n');
+      return 0;
+    }
+    const [min, max] = cmd.positionals;
+    if (parsed.positionals.length < min || parsed.positionals.length > max) {
+      const expected = min === max ? `${min}` : `${min} to ${max}`;
+      throw new TapwardenError('TW_ERR_USAGE', { detail: `${name}: expected ${expected} argument(s), got ${parsed.positionals.length}; ${see}` });
+    }
     return await cmd.run(parsed.values, parsed.positionals);
   } catch (err) {
     if (err instanceof TapwardenError) {
