@@ -47,6 +47,7 @@ export const ERRORS = {
   TW_ERR_HTTP_NOT_FOUND: { message: 'no route {method} {url}', exitCode: 1, httpStatus: 404 },
   TW_ERR_NOT_READY: { message: 'the stream is not running: {reason}', exitCode: 1, httpStatus: 503 },
   TW_ERR_GATE: { message: '{detail}', exitCode: 8 },
+  TW_ERR_INTERNAL: { message: 'internal error: {detail}', exitCode: 70, httpStatus: 500 },
 } as const satisfies Record<string, ErrorDef>;
 
 export type ErrorCode = keyof typeof ERRORS;

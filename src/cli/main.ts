@@ -4,11 +4,15 @@ import { TapwardenError, oneLine } from '../errors.js';
 import { VERSION } from '../version.js';
 import type { Command } from './command.js';
 import { demo } from './commands/demo.js';
+import { devices } from './commands/devices.js';
 import { replayCommand } from './commands/replay.js';
+import { serve } from './commands/serve.js';
 
 const COMMANDS: Record<string, Command> = {
   demo,
   replay: replayCommand,
+  serve,
+  devices,
 };
 
 function usage(): string {
@@ -67,9 +71,10 @@ export async function main(argv: string[]): Promise<number> {
       process.stderr.write(`tapwarden: ${err.message} [${err.code}]\n`);
       return err.exitCode;
     }
-    process.stderr.write(`tapwarden: internal error: ${oneLine(err)}\n`);
+    const internal = new TapwardenError('TW_ERR_INTERNAL', { detail: oneLine(err) });
+    process.stderr.write(`tapwarden: ${internal.message} [${internal.code}]\n`);
     if (process.env['TAPWARDEN_DEBUG']) process.stderr.write(`${(err as Error)?.stack ?? ''}\n`);
-    return 70;
+    return internal.exitCode;
   }
 }
 

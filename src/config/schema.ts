@@ -29,6 +29,32 @@ export interface Config {
     readonly minReferencePowerDb: number | null;
   };
   readonly output: { readonly signal: 'error' | 'estimate'; readonly encoding: OutputEncoding };
+  readonly stream: {
+    readonly source: 'file' | 'device';
+    readonly file: string | null;
+    readonly pace: 'realtime' | 'free';
+    readonly loop: boolean;
+    readonly blockFrames: number;
+    readonly queueBlocks: number;
+    readonly device: {
+      readonly input: string | number | null;
+      readonly sampleRate: number;
+      readonly channels: number;
+      readonly playback: string | number | null;
+      readonly playbackPeakDb: number;
+      readonly retrySeconds: number;
+    };
+  };
+  readonly http: { readonly host: string; readonly port: number };
+  readonly feed: {
+    readonly intervalSeconds: number;
+    readonly maxClients: number;
+    readonly clientBufferBytes: number;
+    readonly maxMessageBytes: number;
+  };
+  readonly control: { readonly tokenFile: string | null };
+  readonly persistence: { readonly file: string | null; readonly minIntervalSeconds: number };
+  readonly log: { readonly level: 'fatal' | 'error' | 'warn' | 'info' | 'debug' | 'trace' };
 }
 
 export type OutputEncoding = 'float32' | 'pcm16' | 'pcm24';
@@ -36,6 +62,7 @@ export type OutputEncoding = 'float32' | 'pcm16' | 'pcm24';
 const int = (minimum: number, maximum: number) => ({ type: 'integer', minimum, maximum });
 const num = (minimum: number, maximum: number) => ({ type: 'number', minimum, maximum });
 const nullable = (s: Record<string, unknown>) => ({ ...s, type: [s['type'], 'null'] });
+const deviceRef = { type: ['string', 'integer', 'null'], minLength: 1, minimum: 0 };
 const section = (properties: Record<string, unknown>) => ({
   type: 'object',
   additionalProperties: false,
@@ -77,4 +104,36 @@ export const configSchema = section({
     signal: { enum: ['error', 'estimate'] },
     encoding: { enum: ['float32', 'pcm16', 'pcm24'] },
   }),
+  stream: section({
+    source: { enum: ['file', 'device'] },
+    file: { type: ['string', 'null'], minLength: 1 },
+    pace: { enum: ['realtime', 'free'] },
+    loop: { type: 'boolean' },
+    blockFrames: int(16, 65536),
+    queueBlocks: int(2, 4096),
+    device: section({
+      input: deviceRef,
+      sampleRate: int(1000, 384000),
+      channels: int(1, 64),
+      playback: deviceRef,
+      playbackPeakDb: num(-120, 0),
+      retrySeconds: num(0.1, 3600),
+    }),
+  }),
+  http: section({
+    host: { type: 'string', minLength: 1 },
+    port: int(0, 65535),
+  }),
+  feed: section({
+    intervalSeconds: num(0.01, 60),
+    maxClients: int(0, 1000),
+    clientBufferBytes: int(1024, 1 << 30),
+    maxMessageBytes: int(16, 1 << 20),
+  }),
+  control: section({ tokenFile: { type: ['string', 'null'], minLength: 1 } }),
+  persistence: section({
+    file: { type: ['string', 'null'], minLength: 1 },
+    minIntervalSeconds: num(0, 86400),
+  }),
+  log: section({ level: { enum: ['fatal', 'error', 'warn', 'info', 'debug', 'trace'] } }),
 });
