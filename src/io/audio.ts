@@ -75,13 +75,23 @@ export function openCapture(opts: {
   io.on('error', (err: Error) => opts.onError(oneLine(err)));
   io.on('end', () => opts.onError('the capture stream ended'));
   io.start();
-  return {
-    stop() {
-      io.removeAllListeners();
-      io.on('error', () => {});
-      io.abort();
-    },
-  };
+  return { stop: () => quit(io) };
+}
+
+/**
+ * Stops a stream. naudiodon 2.3.6's abort() throws ("Quit expects 1 argument"), so this uses
+ * quit(), which lets the native side finish the buffer in hand; errors after stop are dropped.
+ */
+function quit(io: NodeJS.EventEmitter & { quit(cb?: () => void): void }): void {
+  io.removeAllListeners('data');
+  io.removeAllListeners('error');
+  io.removeAllListeners('end');
+  io.on('error', () => {});
+  try {
+    Promise.resolve(io.quit()).catch(() => {});
+  } catch {
+    // already closed
+  }
 }
 
 export interface Playback {
@@ -106,10 +116,6 @@ export function openPlayback(opts: { deviceId: number; sampleRate: number; onErr
     write(b) {
       io.write(b);
     },
-    stop() {
-      io.removeAllListeners();
-      io.on('error', () => {});
-      io.abort();
-    },
+    stop: () => quit(io),
   };
 }

@@ -31,6 +31,8 @@ Options:
       process.once('SIGTERM', () => stop('SIGTERM'));
       process.once('SIGINT', () => stop('SIGINT'));
     });
-    return 0;
+    // A capture stream blocked in the audio driver keeps the event loop alive; everything that
+    // matters (weights, logs) is flushed by now.
+    process.exit(0);
   },
 };

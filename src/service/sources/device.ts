@@ -4,8 +4,8 @@ import { oneLine } from '../../errors.js';
 import { openCapture, resolveDevice, type Capture } from '../../io/audio.js';
 import type { Feeder, SourceEvents, StreamSource } from './source.js';
 
-/** Seconds without data after which a running capture counts as stalled. */
-const STALL_SECONDS = 2;
+/** Seconds without data after which an open capture counts as stalled and is reopened. */
+const STALL_SECONDS = 5;
 
 /**
  * Live capture through PortAudio. 16-bit interleaved frames are cut into blocks of the
@@ -39,7 +39,7 @@ export class DeviceSource extends EventEmitter<SourceEvents> implements StreamSo
     this.feeder = feeder;
     this.open();
     this.watchdog = setInterval(() => {
-      if (this.up && Date.now() - this.lastData > STALL_SECONDS * 1000) this.fail(`no data for ${STALL_SECONDS} s`);
+      if (this.capture !== null && Date.now() - this.lastData > STALL_SECONDS * 1000) this.fail(`no data for ${STALL_SECONDS} s`);
     }, 500);
   }
 
@@ -72,7 +72,7 @@ export class DeviceSource extends EventEmitter<SourceEvents> implements StreamSo
         onData: (b) => this.onData(b),
         onError: (m) => this.fail(m),
       });
-      this.setUp(true, `capturing from ${this.description}`);
+      this.emit('state', false, `opened ${this.description}; waiting for the first samples`);
     } catch (err) {
       this.fail(oneLine(err));
     }
@@ -92,7 +92,9 @@ export class DeviceSource extends EventEmitter<SourceEvents> implements StreamSo
   }
 
   private onData(b: Buffer): void {
+    if (this.feeder === null) return;
     this.lastData = Date.now();
+    if (!this.up) this.setUp(true, `capturing from ${this.description}`);
     const channels = this.config.stream.device.channels;
     const rc = this.config.input.referenceChannel;
     const dc = this.config.input.desiredChannel;
@@ -109,11 +111,14 @@ export class DeviceSource extends EventEmitter<SourceEvents> implements StreamSo
     }
   }
 
+  /**
+   * Stops delivering blocks. The capture stream is left to the process's exit: stopping a
+   * PortAudio stream joins its reader thread, which can sit in a blocked driver read forever.
+   */
   stop(): void {
     this.stopped = true;
     if (this.retryTimer) clearTimeout(this.retryTimer);
     if (this.watchdog) clearInterval(this.watchdog);
-    this.capture?.stop();
-    this.capture = null;
+    this.feeder = null;
   }
 }

@@ -1,0 +1,103 @@
+import { execFileSync } from 'node:child_process';
+import { open, type FileHandle } from 'node:fs/promises';
+import { readFileSync, writeFileSync } from 'node:fs';
+import { join } from 'node:path';
+import { describe, expect, it } from 'vitest';
+import { WavWriter } from '../../src/io/wav/writer.js';
+import { serveWith, sleep, until } from '../helpers/serve.js';
+import { bandLimited, through, white } from '../helpers/signals.js';
+import { cli, tmpDir } from '../helpers/tools.js';
+
+// A real PortAudio capture device with no sound hardware: ALSA's `file` PCM plugin reads the
+// captured samples from `infile`. The infile is a FIFO that this test writes at the stream's
+// rate, which paces the capture; HOME points ALSA at a .asoundrc in a temporary directory. The
+// test holds the FIFO open read-write from the start, so that PortAudio's device probing (which
+// opens the PCM, and so the FIFO) never waits for a writer.
+
+const RATE = 16000;
+const BLOCK = 256;
+const FRAMES = 160 * BLOCK; // 2.56 s
+
+describe('the live path through naudiodon (PortAudio) on an ALSA file device', () => {
+  it("processes exactly the captured samples, and ends where a replay of them ends", async () => {
+    const dir = tmpDir();
+    const fifo = join(dir, 'capture.fifo');
+    execFileSync('mkfifo', [fifo]);
+    writeFileSync(join(dir, '.asoundrc'), `pcm.twbench {\n  type file\n  slave.pcm "null"\n  file "${join(dir, 'played.raw')}"\n  infile "${fifo}"\n  format "raw"\n}\n`);
+
+    const x = bandLimited(FRAMES, 0.02, 0.3, 0.15, 201);
+    const h = Array.from({ length: 16 }, (_, k) => 0.5 * 0.8 ** k * Math.cos(k));
+    const d = through(h, x, white(FRAMES, 0.002, 202));
+    const q = (v: number) => Math.max(-32768, Math.min(32767, Math.round(v * 32768)));
+    const raw = Buffer.alloc(FRAMES * 4);
+    for (let i = 0; i < FRAMES; i++) {
+      raw.writeInt16LE(q(x[i]!), i * 4);
+      raw.writeInt16LE(q(d[i]!), i * 4 + 2);
+    }
+    // The same samples as a WAV for the replay.
+    const wav = join(dir, 'same.wav');
+    const w = new WavWriter(wav, RATE, 2, 'pcm16');
+    w.write([Float64Array.from(x, (v) => q(v) / 32768), Float64Array.from(d, (v) => q(v) / 32768)], FRAMES);
+    w.close();
+    const config = `filter:\n  taps: 32\nsupervisor:\n  windowSeconds: 0.256\n`;
+    writeFileSync(join(dir, 'replay.yaml'), config);
+
+    const fh: FileHandle = await open(fifo, 'r+');
+    const devices = cli(['devices', '--json'], { env: { HOME: dir } });
+    expect(devices.status).toBe(0);
+    expect(JSON.parse(devices.stdout).map((dv: { name: string }) => dv.name)).toContain('twbench');
+
+    const s = await serveWith(
+      dir,
+      `${config}stream:\n  source: device\n  blockFrames: ${BLOCK}\n  device:\n    input: twbench\n    sampleRate: ${RATE}\n    channels: 2\n`,
+      { HOME: dir },
+    );
+    try {
+      // Whole ALSA periods at a time: the file plugin counts a short read from its infile as a
+      // full period (the rest is silence), so a writer must not hand over a partial one.
+      const chunk = 2048;
+      for (let at = 0; at < FRAMES; at += chunk) {
+        await fh.write(raw.subarray(at * 4, (at + chunk) * 4));
+        await sleep((1000 * chunk) / RATE);
+      }
+      await until(async () => (await s.metric('tapwarden_samples_processed_total')) >= FRAMES, 20_000, 'all samples');
+      await sleep(300);
+      expect(await s.metric('tapwarden_samples_processed_total')).toBe(FRAMES);
+      expect(await s.metric('tapwarden_queue_overruns_total')).toBe(0);
+      const live = {
+        adaptive: ((await (await s.get('/api/weights?path=adaptive')).json()) as { weights: number[] }).weights,
+        clean: ((await (await s.get('/api/weights?path=clean')).json()) as { weights: number[] }).weights,
+        accepted: await s.metric('tapwarden_handoffs_accepted_total{reason="supervisor"}'),
+      };
+      const r = cli(['replay', wav, '--config', join(dir, 'replay.yaml'), '--out', join(dir, 'replay')]);
+      expect(r.status).toBe(0);
+      const summary = JSON.parse(readFileSync(join(dir, 'replay', 'summary.json'), 'utf8'));
+      expect(live.adaptive).toEqual(summary.weights.adaptive);
+      expect(live.clean).toEqual(summary.weights.clean);
+      expect(live.accepted).toBe(summary.handoffs.accepted);
+      expect(live.accepted).toBeGreaterThan(0);
+    } finally {
+      // Close the FIFO first: a capture blocked reading an empty FIFO would hold up the exit.
+      await fh.close();
+      await s.stop();
+    }
+  });
+
+  it('a device that is not there is reported and retried; the service keeps running', async () => {
+    const dir = tmpDir();
+    writeFileSync(join(dir, '.asoundrc'), '');
+    const s = await serveWith(dir, `stream:\n  source: device\n  device:\n    input: no-such-card\n    retrySeconds: 0.5\n`, { HOME: dir });
+    try {
+      await sleep(1500);
+      const downs = s.logs.filter((l) => String(l['msg']).startsWith('stream down: audio device "no-such-card": not found'));
+      expect(downs.length).toBeGreaterThanOrEqual(2); // the first attempt and at least one retry
+      const ready = await s.get('/readyz');
+      expect(ready.status).toBe(503);
+      expect(((await ready.json()) as any).error.code).toBe('TW_ERR_NOT_READY');
+      expect(await s.metric('tapwarden_stream_up')).toBe(0);
+      expect((await s.get('/healthz')).status).toBe(200);
+    } finally {
+      await s.stop();
+    }
+  });
+});
