@@ -3,6 +3,7 @@ import { parseArgs } from 'node:util';
 import { TapwardenError, oneLine } from '../errors.js';
 import { VERSION } from '../version.js';
 import type { Command } from './command.js';
+import { bench } from './commands/bench.js';
 import { demo } from './commands/demo.js';
 import { devices } from './commands/devices.js';
 import { replayCommand } from './commands/replay.js';
@@ -13,6 +14,7 @@ const COMMANDS: Record<string, Command> = {
   replay: replayCommand,
   serve,
   devices,
+  bench,
 };
 
 function usage(): string {

@@ -100,6 +100,25 @@ function crossChecks(c: Config): string | null {
   if (input.referenceChannel === input.desiredChannel) {
     return `input.desiredChannel = ${input.desiredChannel} is not allowed; allowed: a channel other than input.referenceChannel`;
   }
+  if (filter.algorithm === 'pbfdaf') {
+    const unsupported = (
+      [
+        ['arithmetic', filter.arithmetic !== 'float64', 'float64'],
+        ['noiseInjectionDb', filter.noiseInjectionDb !== null, 'null'],
+        ['meanRemovalEvery', filter.meanRemovalEvery !== null, 'null'],
+      ] as const
+    ).find(([, bad]) => bad);
+    if (unsupported) {
+      const [key, , allowed] = unsupported;
+      return `filter.${key} = ${JSON.stringify(filter[key])} is not allowed with algorithm pbfdaf; allowed: ${allowed}`;
+    }
+    if (filter.taps % filter.blockSize !== 0) {
+      return `filter.taps = ${filter.taps} is not allowed with algorithm pbfdaf; allowed: a multiple of filter.blockSize (${filter.blockSize})`;
+    }
+    if (!(filter.step < 1)) {
+      return `filter.step = ${filter.step} is not allowed with algorithm pbfdaf; allowed: 0 < step < 1 (the normalized block update's stability bound)`;
+    }
+  }
   if (filter.algorithm === 'nlms' && !(filter.step < NLMS_STEP_BOUND)) {
     return `filter.step = ${filter.step} is not allowed; allowed: 0 < step < ${NLMS_STEP_BOUND} (the NLMS stability bound)`;
   }

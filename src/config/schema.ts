@@ -17,6 +17,8 @@ export interface Config {
     readonly arithmetic: Arithmetic;
     readonly rounding: Rounding;
     readonly weightLimit: number;
+    readonly blockSize: number;
+    readonly constrained: boolean;
   };
   readonly supervisor: {
     readonly windowSeconds: number;
@@ -77,7 +79,7 @@ export const configSchema = section({
     desiredChannel: int(0, 255),
   }),
   filter: section({
-    algorithm: { enum: ['lms', 'nlms'] },
+    algorithm: { enum: ['lms', 'nlms', 'pbfdaf'] },
     taps: int(1, 65536),
     step: { type: 'number', exclusiveMinimum: 0, maximum: 1000 },
     delta: num(0, 1000),
@@ -89,6 +91,8 @@ export const configSchema = section({
     arithmetic: { enum: ['float64', 'float32', 'q15', 'q31'] },
     rounding: { enum: ['nearest', 'truncate'] },
     weightLimit: { type: 'number', exclusiveMinimum: 0, maximum: 1e30 },
+    blockSize: { enum: [16, 32, 64, 128, 256, 512, 1024, 2048, 4096] },
+    constrained: { type: 'boolean' },
   }),
   supervisor: section({
     windowSeconds: num(0.001, 3600),

@@ -1,17 +1,37 @@
+import { FdafAdaptiveKernel, FdafFirKernel } from './fdaf.js';
 import { FixedAdaptiveKernel, FixedFirKernel } from './fixedKernel.js';
 import { FloatAdaptiveKernel, FloatFirKernel } from './floatKernel.js';
 import type { AdaptiveKernel, AdaptiveSpec, FirKernel } from './types.js';
+import { WasmAdaptiveKernel, WasmFirKernel, hasFastKernel } from './wasm/fastKernels.js';
 
-/** The adaptive kernel for the spec's arithmetic. */
-export function createAdaptiveKernel(spec: AdaptiveSpec): AdaptiveKernel {
-  return spec.arithmetic === 'q15' || spec.arithmetic === 'q31'
-    ? new FixedAdaptiveKernel(spec)
-    : new FloatAdaptiveKernel(spec);
+/**
+ * Which implementation runs: the fast WebAssembly kernels where they exist (float64, q15, q31)
+ * and the reference kernels otherwise (float32), or the reference everywhere when asked
+ * (TAPWARDEN_KERNELS=reference), e.g. to cross-check a result.
+ */
+export type KernelChoice = 'fast' | 'reference';
+
+function useFast(spec: AdaptiveSpec, choice: KernelChoice | undefined): boolean {
+  const wanted = choice ?? (process.env['TAPWARDEN_KERNELS'] === 'reference' ? 'reference' : 'fast');
+  return wanted === 'fast' && hasFastKernel(spec);
+}
+
+const isFixed = (spec: AdaptiveSpec) => spec.arithmetic === 'q15' || spec.arithmetic === 'q31';
+
+const fdafOptions = (spec: AdaptiveSpec) => ({ blockSize: spec.blockSize ?? 256, constrained: spec.constrained ?? true });
+
+/** The adaptive kernel for the spec's algorithm and arithmetic. */
+export function createAdaptiveKernel(spec: AdaptiveSpec, choice?: KernelChoice): AdaptiveKernel {
+  if (spec.algorithm === 'pbfdaf') return new FdafAdaptiveKernel(spec, fdafOptions(spec));
+  if (useFast(spec, choice)) return new WasmAdaptiveKernel(spec);
+  return isFixed(spec) ? new FixedAdaptiveKernel(spec) : new FloatAdaptiveKernel(spec);
 }
 
 /** The fixed-weight filter for the clean path, in the same arithmetic. */
-export function createFirKernel(spec: AdaptiveSpec): FirKernel {
-  return spec.arithmetic === 'q15' || spec.arithmetic === 'q31' ? new FixedFirKernel(spec) : new FloatFirKernel(spec);
+export function createFirKernel(spec: AdaptiveSpec, choice?: KernelChoice): FirKernel {
+  if (spec.algorithm === 'pbfdaf') return new FdafFirKernel(spec, fdafOptions(spec));
+  if (useFast(spec, choice)) return new WasmFirKernel(spec);
+  return isFixed(spec) ? new FixedFirKernel(spec) : new FloatFirKernel(spec);
 }
 
 /** The largest |w| the arithmetic can store. */

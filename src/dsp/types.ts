@@ -1,10 +1,10 @@
 import type { Rounding } from './fixed.js';
 
 export type Arithmetic = 'float64' | 'float32' | 'q15' | 'q31';
-export type Algorithm = 'lms' | 'nlms';
+export type Algorithm = 'lms' | 'nlms' | 'pbfdaf';
 
 export const ARITHMETICS: readonly Arithmetic[] = ['float64', 'float32', 'q15', 'q31'];
-export const ALGORITHMS: readonly Algorithm[] = ['lms', 'nlms'];
+export const ALGORITHMS: readonly Algorithm[] = ['lms', 'nlms', 'pbfdaf'];
 
 /** Everything a kernel needs to know; units are real (full scale = 1.0). */
 export interface AdaptiveSpec {
@@ -24,6 +24,10 @@ export interface AdaptiveSpec {
   readonly rounding: Rounding;
   /** Largest |w| a float store may hold (fixed point is bounded by its format). */
   readonly weightLimit: number;
+  /** pbfdaf: partition length N (taps must be a multiple). */
+  readonly blockSize?: number;
+  /** pbfdaf: apply the gradient constraint. */
+  readonly constrained?: boolean;
 }
 
 export interface WeightStats {

@@ -38,4 +38,16 @@ describe('sample-by-sample and block feeding give identical results', () => {
       });
     }
   }
+
+  for (const constrained of [true, false]) {
+    it(`float64 pbfdaf (${constrained ? 'constrained' : 'unconstrained'}), with leak`, () => {
+      const s = settings({ algorithm: 'pbfdaf', taps: 32, blockSize: 16, constrained, step: 0.5, leak: 0.001 });
+      const whole = runEngine(s, x, d, [n]);
+      const ragged = runEngine(s, x, d, [1, 17, 256, 3, 1000]);
+      expect(whole.handoffs.length).toBeGreaterThan(0);
+      expect(Buffer.from(ragged.clean.buffer).equals(Buffer.from(whole.clean.buffer))).toBe(true);
+      expect(Buffer.from(ragged.adaptive.buffer).equals(Buffer.from(whole.adaptive.buffer))).toBe(true);
+      expect(ragged.windows.map((w) => w.decision)).toEqual(whole.windows.map((w) => w.decision));
+    });
+  }
 });

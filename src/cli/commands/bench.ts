@@ -1,0 +1,118 @@
+import { benchEngine, type BenchCase } from '../../bench/engine.js';
+import { C_FLAGS, buildCReference, numpyAvailable, runCReference, runNumpyReference, type ReferenceResult } from '../../bench/references.js';
+import { ALGORITHMS, ARITHMETICS, type Algorithm, type Arithmetic } from '../../dsp/types.js';
+import { TapwardenError } from '../../errors.js';
+import type { Command } from '../command.js';
+
+const DEFAULT_TAPS = [64, 256, 1024, 4096];
+const DEFAULT_ROWS: Array<Pick<BenchCase, 'algorithm' | 'arithmetic' | 'constrained'>> = [
+  { algorithm: 'nlms', arithmetic: 'float64' },
+  { algorithm: 'nlms', arithmetic: 'q15' },
+  { algorithm: 'nlms', arithmetic: 'q31' },
+  { algorithm: 'pbfdaf', arithmetic: 'float64', constrained: false },
+  { algorithm: 'pbfdaf', arithmetic: 'float64', constrained: true },
+];
+
+function choice<T extends string>(key: string, value: string | undefined, allowed: readonly T[]): T | undefined {
+  if (value === undefined) return undefined;
+  if (!allowed.includes(value as T)) throw new TapwardenError('TW_ERR_USAGE', { detail: `bench: --${key} ${value} is not allowed; allowed: ${allowed.join(', ')}` });
+  return value as T;
+}
+
+function positive(key: string, value: string | undefined, fallback: number, integer: boolean): number {
+  if (value === undefined) return fallback;
+  const v = Number(value);
+  if (!(v > 0) || (integer && !Number.isInteger(v))) {
+    throw new TapwardenError('TW_ERR_USAGE', { detail: `bench: --${key} ${value} is not allowed; allowed: a positive ${integer ? 'integer' : 'number'}` });
+  }
+  return v;
+}
+
+/** The pbfdaf block size the bench uses: N = L/4 between 64 and 1024 (latency N samples). */
+const blockFor = (taps: number) => Math.max(Math.min(1024, taps / 4), Math.min(64, taps));
+
+export const bench: Command = {
+  summary: "measure the engine's throughput on this machine, beside a C reference",
+  usage: `Usage: tapwarden bench [--algorithm A] [--taps N] [--arithmetic X] [--rate HZ] [--seconds S] [--json]
+
+Runs the whole dual path (adaptive and clean filters, statistics, supervisor) on synthetic data
+and reports samples per second and the real-time factor at the given rate. With no algorithm,
+taps or arithmetic it prints a table over 64, 256, 1024 and 4096 taps for NLMS in float64, q15
+and q31 and for the partitioned frequency-domain filter. NLMS float64 rows also run the C
+reference (bench/c, built with ${C_FLAGS.join(' ')} when a compiler is present) and, where
+python3 has numpy, the per-sample numpy script (bench/numpy_nlms.py), in the same run.
+
+Options:
+  --algorithm A   lms, nlms or pbfdaf
+  --taps N        filter length
+  --arithmetic X  float64, float32, q15 or q31
+  --rate HZ       sample rate for the real-time factor (default 48000)
+  --seconds S     seconds of audio per measurement (default 3)
+  --json          JSON on stdout (an object, or an array for the table)
+  -h, --help      this help`,
+  options: {
+    algorithm: { type: 'string' },
+    taps: { type: 'string' },
+    arithmetic: { type: 'string' },
+    rate: { type: 'string' },
+    seconds: { type: 'string' },
+    json: { type: 'boolean' },
+  },
+  positionals: [0, 0],
+  run(values) {
+    const algorithm = choice<Algorithm>('algorithm', values['algorithm'] as string | undefined, ALGORITHMS);
+    const arithmetic = choice<Arithmetic>('arithmetic', values['arithmetic'] as string | undefined, ARITHMETICS);
+    const tapsArg = values['taps'] as string | undefined;
+    const rate = positive('rate', values['rate'] as string | undefined, 48000, true);
+    const seconds = positive('seconds', values['seconds'] as string | undefined, 3, false);
+    const single = algorithm !== undefined || arithmetic !== undefined || tapsArg !== undefined;
+    const taps = tapsArg === undefined ? DEFAULT_TAPS : [positive('taps', tapsArg, 0, true)];
+    const rows = single ? [{ algorithm: algorithm ?? 'nlms', arithmetic: arithmetic ?? 'float64' }] : DEFAULT_ROWS;
+    if (rows.some((r) => r.algorithm === 'pbfdaf' && r.arithmetic !== 'float64')) {
+      throw new TapwardenError('TW_ERR_USAGE', { detail: 'bench: pbfdaf runs in float64 only' });
+    }
+    const c = rows.some((r) => r.algorithm === 'nlms' && r.arithmetic === 'float64') ? buildCReference() : { skipped: 'not an NLMS float64 case' };
+    const numpy = numpyAvailable();
+    const json = values['json'] === true;
+    const results = [];
+    if (!json) {
+      process.stdout.write(`tapwarden bench: dual path, ${rate} Hz, ${seconds} s of synthetic audio per row, one core\n`);
+      if ('skipped' in c && single === false) process.stdout.write(`C reference skipped: ${c.skipped}\n`);
+      process.stdout.write(`${'algorithm'.padEnd(22)}${'arith'.padEnd(9)}${'taps'.padStart(6)}${'samples/s'.padStart(13)}${'x real time'.padStart(13)}${'C x rt'.padStart(9)}${'tw/C'.padStart(7)}${'numpy x rt'.padStart(12)}${'tw/numpy'.padStart(10)}\n`);
+    }
+    for (const row of rows) {
+      for (const L of taps) {
+        if (row.algorithm === 'pbfdaf' && L % blockFor(L) !== 0) continue;
+        const r = benchEngine({ ...row, taps: L, rate, seconds, blockSize: blockFor(L) });
+        let cRef: ReferenceResult | null = null;
+        let npRef: ReferenceResult | null = null;
+        if (row.algorithm === 'nlms' && row.arithmetic === 'float64') {
+          if ('binary' in c) cRef = runCReference(c.binary, L, seconds, rate);
+          if (numpy) npRef = runNumpyReference(L, Math.min(seconds, 1), rate);
+        }
+        const name = row.algorithm === 'pbfdaf' ? `pbfdaf N=${blockFor(L)} ${row.constrained === false ? 'unconstr.' : 'constr.'}` : row.algorithm;
+        const out = {
+          algorithm: r.algorithm,
+          ...(r.algorithm === 'pbfdaf' ? { blockSize: r.blockSize, constrained: r.constrained } : {}),
+          taps: L,
+          arithmetic: r.arithmetic,
+          rate,
+          samplesPerSecond: Math.round(r.samplesPerSecond),
+          realtimeFactor: +r.realtimeFactor.toFixed(2),
+          ...(cRef ? { cSamplesPerSecond: Math.round(cRef.samplesPerSecond), cRealtimeFactor: +cRef.realtimeFactor.toFixed(2), ratioToC: +(r.samplesPerSecond / cRef.samplesPerSecond).toFixed(3) } : {}),
+          ...(npRef ? { numpyRealtimeFactor: +npRef.realtimeFactor.toFixed(2), ratioToNumpy: +(r.samplesPerSecond / npRef.samplesPerSecond).toFixed(1) } : {}),
+        };
+        results.push(out);
+        if (!json) {
+          const f = (v: number | undefined, d: number) => (v === undefined ? '' : v.toFixed(d));
+          process.stdout.write(
+            `${name.padEnd(22)}${r.arithmetic.padEnd(9)}${String(L).padStart(6)}${String(out.samplesPerSecond).padStart(13)}${f(out.realtimeFactor, 1).padStart(13)}` +
+              `${f(out.cRealtimeFactor, 1).padStart(9)}${f(out.ratioToC, 2).padStart(7)}${f(out.numpyRealtimeFactor, 1).padStart(12)}${f(out.ratioToNumpy, 1).padStart(10)}\n`,
+          );
+        }
+      }
+    }
+    if (json) process.stdout.write(JSON.stringify(single && results.length === 1 ? results[0] : results) + '\n');
+    return 0;
+  },
+};

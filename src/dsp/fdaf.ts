@@ -1,0 +1,341 @@
+import FFT from 'fft.js';
+import { statsOf, type AdaptiveKernel, type AdaptiveSpec, type FirKernel, type WeightStats } from './types.js';
+
+/**
+ * The partitioned-block frequency-domain adaptive filter (PBFDAF, also called the multidelay
+ * filter): overlap-save with a 2N-point FFT, the L taps cut into P = L/N partitions of N taps,
+ * each with its own spectrum, fed from a frequency-domain delay line of input spectra. Sources:
+ * Soo & Pang, IEEE Trans. ASSP 38(2), 1990 (multidelay); Shynk, "Frequency-domain and multirate
+ * adaptive filtering", IEEE SP Magazine 9(1), 1992; Ferrara, IEEE Trans. ASSP 28(4), 1980.
+ *
+ * With the gradient constraint the update equals time-domain block LMS with block length N;
+ * without it (Mansour & Gray, IEEE Trans. ASSP 30(5), 1982) each update saves 2P FFTs but the
+ * partitions' impulse responses may wrap. The step is normalized per frequency bin by a smoothed
+ * input power, so `step` behaves like the NLMS step. Outputs are one block late: sample n of the
+ * output streams belongs to input sample n - N (latency N samples).
+ */
+
+export interface FdafOptions {
+  /** Partition (block) length N; L must be a multiple of it. */
+  readonly blockSize: number;
+  readonly constrained: boolean;
+  /** Per-bin power normalization; off gives plain block LMS with step mu (for tests). */
+  readonly normalized?: boolean;
+}
+
+/** Smoothing of the per-bin input power, per block. */
+const POWER_SMOOTHING = 0.9;
+/**
+ * A bin's power is floored at this fraction of the mean over bins, so that bins the input does
+ * not excite (a band-limited reference) do not get an unbounded step (common practice).
+ */
+const POWER_FLOOR = 0.01;
+
+/**
+ * Real 2N-point transforms over bins 0..N (interleaved re, im), on fft.js. The inverse runs as
+ * one N-point complex transform of z[n] = x[2n] + j x[2n+1], whose spectrum follows from the
+ * Hermitian half: Z[k] = X_e[k] + j X_o[k], X_e[k] = (X[k] + X*[N-k]) / 2,
+ * X_o[k] = (X[k] - X*[N-k]) e^{+j pi k / N} / 2 (the even/odd split of the decimation in time).
+ */
+export class RealFft {
+  private readonly fft: FFT;
+  private readonly half: FFT;
+  private readonly out: Float64Array;
+  private readonly z: Float64Array;
+  private readonly zt: Float64Array;
+  private readonly cos: Float64Array;
+  private readonly sin: Float64Array;
+
+  constructor(readonly size: number) {
+    const N = size / 2;
+    this.fft = new FFT(size);
+    this.half = new FFT(N);
+    this.out = new Float64Array(2 * size);
+    this.z = new Float64Array(2 * N);
+    this.zt = new Float64Array(2 * N);
+    this.cos = new Float64Array(N);
+    this.sin = new Float64Array(N);
+    for (let k = 0; k < N; k++) {
+      this.cos[k] = Math.cos((Math.PI * k) / N);
+      this.sin[k] = Math.sin((Math.PI * k) / N);
+    }
+  }
+
+  /** spectrum[0 .. 2(N+1)) <- FFT(signal), signal of length 2N. */
+  forward(signal: Float64Array, spectrum: Float64Array): void {
+    this.fft.realTransform(this.out, signal);
+    spectrum.set(this.out.subarray(0, this.size + 2));
+  }
+
+  /** signal <- the inverse FFT of the Hermitian spectrum given by bins 0..N (real). */
+  inverse(X: Float64Array, signal: Float64Array): void {
+    const N = this.size / 2;
+    const z = this.z;
+    for (let k = 0; k < N; k++) {
+      const ar = X[2 * k]!;
+      const ai = X[2 * k + 1]!;
+      const br = X[2 * (N - k)]!; // X*[N-k] = (br, -bi)
+      const bi = -X[2 * (N - k) + 1]!;
+      const er = 0.5 * (ar + br);
+      const ei = 0.5 * (ai + bi);
+      const dr = 0.5 * (ar - br);
+      const di = 0.5 * (ai - bi);
+      const c = this.cos[k]!;
+      const s = this.sin[k]!;
+      const or = dr * c - di * s; // X_o = d e^{+j pi k / N}
+      const oi = dr * s + di * c;
+      z[2 * k] = er - oi; // Z = X_e + j X_o
+      z[2 * k + 1] = ei + or;
+    }
+    this.half.inverseTransform(this.zt, z);
+    for (let n = 0; n < N; n++) {
+      signal[2 * n] = this.zt[2 * n]!;
+      signal[2 * n + 1] = this.zt[2 * n + 1]!;
+    }
+  }
+}
+
+/** The block machinery both paths share: input buffering, spectra history, one block of delay. */
+class PartitionedFilter {
+  readonly N: number;
+  readonly P: number;
+  readonly bins: number;
+  readonly rfft: RealFft;
+  /** Input spectra, newest first: history[(head + p) % P] is p blocks old. */
+  readonly history: Float64Array[];
+  head = 0;
+  readonly weights: Float64Array[];
+  readonly inBuf: Float64Array;
+  readonly dBuf: Float64Array;
+  readonly outY: Float64Array;
+  readonly outE: Float64Array;
+  fill = 0;
+  protected readonly Y: Float64Array;
+  protected readonly time: Float64Array;
+
+  constructor(taps: number, blockSize: number) {
+    if (taps % blockSize !== 0) throw new RangeError(`taps ${taps} is not a multiple of the block size ${blockSize}`);
+    this.N = blockSize;
+    this.P = taps / blockSize;
+    this.bins = blockSize + 1;
+    this.rfft = new RealFft(2 * blockSize);
+    this.history = Array.from({ length: this.P }, () => new Float64Array(2 * this.bins));
+    this.weights = Array.from({ length: this.P }, () => new Float64Array(2 * this.bins));
+    this.inBuf = new Float64Array(2 * blockSize);
+    this.dBuf = new Float64Array(blockSize);
+    this.outY = new Float64Array(blockSize);
+    this.outE = new Float64Array(blockSize);
+    this.Y = new Float64Array(2 * this.bins);
+    this.time = new Float64Array(2 * blockSize);
+  }
+
+  /** Feeds samples; every N of them, `block` runs. Outputs lag one block. */
+  feed(x: Float64Array, d: Float64Array, y: Float64Array, e: Float64Array, start: number, end: number, block: () => void): void {
+    const N = this.N;
+    for (let n = start; n < end; n++) {
+      const f = this.fill;
+      y[n] = this.outY[f]!;
+      e[n] = this.outE[f]!;
+      this.inBuf[N + f] = x[n]!;
+      this.dBuf[f] = d[n]!;
+      if (++this.fill === N) {
+        this.fill = 0;
+        this.head = (this.head + this.P - 1) % this.P;
+        this.rfft.forward(this.inBuf, this.history[this.head]!);
+        block();
+        this.inBuf.copyWithin(0, N);
+      }
+    }
+  }
+
+  /** outY, outE <- the block's output with the current weights. */
+  filterBlock(): void {
+    const { P, bins, Y, time, N } = this;
+    Y.fill(0);
+    for (let p = 0; p < P; p++) {
+      const X = this.history[(this.head + p) % P]!;
+      const W = this.weights[p]!;
+      for (let b = 0; b < 2 * bins; b += 2) {
+        const xr = X[b]!;
+        const xi = X[b + 1]!;
+        const wr = W[b]!;
+        const wi = W[b + 1]!;
+        Y[b] += wr * xr - wi * xi;
+        Y[b + 1] += wr * xi + wi * xr;
+      }
+    }
+    this.rfft.inverse(Y, time);
+    for (let i = 0; i < N; i++) {
+      this.outY[i] = time[N + i]!;
+      this.outE[i] = this.dBuf[i]! - time[N + i]!;
+    }
+  }
+
+  /** Time-domain taps: the first N samples of each partition's impulse response. */
+  timeWeights(): Float64Array {
+    const w = new Float64Array(this.P * this.N);
+    for (let p = 0; p < this.P; p++) {
+      this.rfft.inverse(this.weights[p]!, this.time);
+      w.set(this.time.subarray(0, this.N), p * this.N);
+    }
+    return w;
+  }
+
+  setTimeWeights(w: ArrayLike<number>): void {
+    for (let p = 0; p < this.P; p++) {
+      this.time.fill(0);
+      for (let j = 0; j < this.N; j++) this.time[j] = w[p * this.N + j] ?? 0;
+      this.rfft.forward(this.time, this.weights[p]!);
+    }
+  }
+
+  copyStateFrom(o: PartitionedFilter): void {
+    for (let p = 0; p < this.P; p++) this.history[p]!.set(o.history[p]!);
+    this.head = o.head;
+    this.inBuf.set(o.inBuf);
+    this.dBuf.set(o.dBuf);
+    this.outY.set(o.outY);
+    this.outE.set(o.outE);
+    this.fill = o.fill;
+  }
+
+  clear(): void {
+    for (const a of [...this.history, ...this.weights, this.inBuf, this.dBuf, this.outY, this.outE]) a.fill(0);
+    this.head = 0;
+    this.fill = 0;
+  }
+}
+
+export class FdafAdaptiveKernel implements AdaptiveKernel {
+  adapting = true;
+  readonly saturations = 0;
+  private readonly pf: PartitionedFilter;
+  private readonly power: Float64Array;
+  private readonly E: Float64Array;
+  private readonly G: Float64Array;
+  private readonly g: Float64Array;
+  private readonly normalized: boolean;
+  private blocks = 0;
+
+  constructor(
+    readonly spec: AdaptiveSpec,
+    private readonly opts: FdafOptions,
+  ) {
+    this.pf = new PartitionedFilter(spec.taps, opts.blockSize);
+    this.normalized = opts.normalized ?? true;
+    this.power = new Float64Array(this.pf.bins);
+    this.E = new Float64Array(2 * this.pf.bins);
+    this.G = new Float64Array(2 * this.pf.bins);
+    this.g = new Float64Array(2 * opts.blockSize);
+  }
+
+  run(x: Float64Array, d: Float64Array, _noise: Float64Array | null, y: Float64Array, e: Float64Array, start: number, end: number): void {
+    this.pf.feed(x, d, y, e, start, end, this.block);
+  }
+
+  private readonly block = (): void => {
+    const pf = this.pf;
+    pf.filterBlock();
+    if (!this.adapting) return;
+    const { N, P, bins, history, weights, rfft } = pf;
+    const { step, delta, leak, leakShift } = this.spec;
+    const X0 = history[pf.head]!;
+    // Per-bin input power, smoothed over blocks.
+    const a = this.blocks++ === 0 ? 0 : POWER_SMOOTHING;
+    let meanPower = 0;
+    for (let b = 0; b < bins; b++) {
+      const p = X0[2 * b]! ** 2 + X0[2 * b + 1]! ** 2;
+      this.power[b] = a * this.power[b]! + (1 - a) * p;
+      meanPower += this.power[b]!;
+    }
+    meanPower /= bins;
+    const floor = POWER_FLOOR * meanPower;
+    // E = FFT([0_N, e_block])
+    const g = this.g;
+    g.fill(0, 0, N);
+    g.set(pf.outE, N);
+    rfft.forward(g, this.E);
+    // The leak over one block of N samples: (1 - mu_n gamma)^N (1 - 2^-k)^N, with the step the
+    // normalization gives on average.
+    const muMean = this.normalized ? step / ((P * meanPower) / 2 + delta) : step;
+    const keep = (1 - muMean * leak) ** N * (leakShift === null ? 1 : (1 - 2 ** -leakShift) ** N);
+    const E = this.E;
+    const G = this.G;
+    for (let p = 0; p < P; p++) {
+      const X = history[(pf.head + p) % P]!;
+      for (let b = 0; b < bins; b++) {
+        const mu = this.normalized ? step / ((P * Math.max(this.power[b]!, floor)) / 2 + delta) : step;
+        const xr = X[2 * b]!;
+        const xi = X[2 * b + 1]!;
+        const er = E[2 * b]!;
+        const ei = E[2 * b + 1]!;
+        // conj(X) E
+        G[2 * b] = mu * (xr * er + xi * ei);
+        G[2 * b + 1] = mu * (xr * ei - xi * er);
+      }
+      if (this.opts.constrained) {
+        rfft.inverse(G, g);
+        g.fill(0, N);
+        rfft.forward(g, G);
+      }
+      const W = weights[p]!;
+      for (let i = 0; i < 2 * bins; i++) W[i] = keep * W[i]! + G[i]!;
+    }
+  };
+
+  getWeights(): Float64Array {
+    return this.pf.timeWeights();
+  }
+
+  setWeights(w: ArrayLike<number>): void {
+    this.pf.setTimeWeights(w);
+  }
+
+  reset(): void {
+    this.pf.clear();
+    this.power.fill(0);
+    this.blocks = 0;
+  }
+
+  weightStats(out: WeightStats): WeightStats {
+    return statsOf(this.pf.timeWeights(), 1, out);
+  }
+}
+
+/** The clean path for PBFDAF: the same partitioned convolution with fixed weights. */
+export class FdafFirKernel implements FirKernel {
+  readonly saturations = 0;
+  private readonly pf: PartitionedFilter;
+
+  constructor(spec: AdaptiveSpec, opts: FdafOptions) {
+    this.pf = new PartitionedFilter(spec.taps, opts.blockSize);
+  }
+
+  get taps(): number {
+    return this.pf.P * this.pf.N;
+  }
+
+  run(x: Float64Array, d: Float64Array, y: Float64Array, e: Float64Array, start: number, end: number): void {
+    this.pf.feed(x, d, y, e, start, end, () => this.pf.filterBlock());
+  }
+
+  getWeights(): Float64Array {
+    return this.pf.timeWeights();
+  }
+
+  setWeights(w: ArrayLike<number>): void {
+    this.pf.setTimeWeights(w);
+  }
+
+  copyHistoryFrom(other: FirKernel): void {
+    this.pf.copyStateFrom((other as FdafFirKernel).pf);
+  }
+
+  reset(): void {
+    this.pf.clear();
+  }
+
+  weightStats(out: WeightStats): WeightStats {
+    return statsOf(this.pf.timeWeights(), 1, out);
+  }
+}

@@ -1,0 +1,102 @@
+import { describe, expect, it } from 'vitest';
+import { FixedAdaptiveKernel, FixedFirKernel } from '../../src/dsp/fixedKernel.js';
+import { FloatAdaptiveKernel, FloatFirKernel } from '../../src/dsp/floatKernel.js';
+import type { AdaptiveKernel, AdaptiveSpec, FirKernel } from '../../src/dsp/types.js';
+import { WasmAdaptiveKernel, WasmFirKernel, fastKernelsAvailable } from '../../src/dsp/wasm/fastKernels.js';
+import { bandLimited, spec, through, white } from '../helpers/signals.js';
+
+// The fast (WebAssembly) kernels against the reference kernels, which DEVELOPERS.md defines
+// operation by operation: bit for bit in fixed point, within rounding of the dot-product order
+// in float64.
+
+const n = 6000;
+const x = bandLimited(n, 0.02, 0.4, 0.3, 301);
+for (let i = 1000; i < 1010; i++) x[i] = 1.5 * Math.sign(x[i]!); // clips on input
+const d = through([0.6, -0.3, 0.2, 0.1, -0.05], x, white(n, 0.01, 302));
+const noise = white(n, 0.01, 303);
+
+function drive(k: AdaptiveKernel, withNoise: boolean) {
+  const y = new Float64Array(n);
+  const e = new Float64Array(n);
+  const cuts = [0, 1, 2, 50, 1500, 1501, 2600, 4000, n];
+  for (let c = 0; c + 1 < cuts.length; c++) {
+    if (c === 4) k.adapting = false; // frozen for a stretch
+    if (c === 6) k.adapting = true;
+    k.run(x, d, withNoise ? noise : null, y, e, cuts[c]!, cuts[c + 1]!);
+  }
+  return { y, e, w: k.getWeights(), sat: k.saturations };
+}
+
+function driveFir(k: FirKernel, w: Float64Array) {
+  k.setWeights(w);
+  const y = new Float64Array(n);
+  const e = new Float64Array(n);
+  k.run(x, d, y, e, 0, 3000);
+  k.run(x, d, y, e, 3000, n);
+  return { y, e, sat: k.saturations };
+}
+
+const bits = (a: Float64Array) => Buffer.from(a.buffer);
+
+describe('fast kernels reproduce the reference kernels', () => {
+  it('are built', () => expect(fastKernelsAvailable()).toBe(true));
+
+  const fixedCases: Array<Partial<AdaptiveSpec> & { noise?: boolean }> = [];
+  for (const arithmetic of ['q15', 'q31'] as const)
+    for (const algorithm of ['lms', 'nlms'] as const)
+      for (const rounding of ['nearest', 'truncate'] as const)
+        for (const variant of [0, 1, 2])
+          fixedCases.push({
+            arithmetic,
+            algorithm,
+            rounding,
+            taps: [1, 7, 16, 33][variant + (algorithm === 'nlms' ? 1 : 0)]!,
+            step: algorithm === 'lms' ? 0.2 : 0.9,
+            delta: 1e-4,
+            leak: variant === 1 ? 0.003 : 0,
+            leakShift: variant === 2 ? 12 : null,
+            meanRemovalEvery: variant === 1 ? 97 : null,
+            noise: variant !== 0,
+          });
+
+  for (const c of fixedCases) {
+    it(`bit for bit: ${c.arithmetic} ${c.algorithm} ${c.rounding}, ${c.taps} taps, leak ${c.leak}, leakShift ${c.leakShift}, mean removal ${c.meanRemovalEvery}, noise ${c.noise}`, () => {
+      const s = spec(c);
+      const ref = drive(new FixedAdaptiveKernel(s), c.noise!);
+      const fast = drive(new WasmAdaptiveKernel(s), c.noise!);
+      expect(bits(fast.y).equals(bits(ref.y))).toBe(true);
+      expect(bits(fast.e).equals(bits(ref.e))).toBe(true);
+      expect(fast.w).toEqual(ref.w);
+      expect(fast.sat).toBe(ref.sat);
+      expect(ref.sat).toBeGreaterThan(0); // the clipped inputs are counted in both
+      const firRef = driveFir(new FixedFirKernel(s), ref.w.map((v) => v * 3));
+      const firFast = driveFir(new WasmFirKernel(s), ref.w.map((v) => v * 3));
+      expect(bits(firFast.y).equals(bits(firRef.y))).toBe(true);
+      expect(bits(firFast.e).equals(bits(firRef.e))).toBe(true);
+      expect(firFast.sat).toBe(firRef.sat);
+    });
+  }
+
+  for (const c of [
+    { algorithm: 'nlms', taps: 32, step: 0.5, delta: 1e-6, leak: 0.001 },
+    { algorithm: 'lms', taps: 33, step: 0.05, leakShift: 10, meanRemovalEvery: 101 },
+    { algorithm: 'nlms', taps: 64, step: 1, delta: 1e-6, noise: true },
+    { algorithm: 'lms', taps: 8, step: 0.4, weightLimit: 0.25 },
+  ] as Array<Partial<AdaptiveSpec> & { noise?: boolean }>) {
+    it(`float64 within rounding: ${JSON.stringify(c)}`, () => {
+      const s = spec({ ...c, arithmetic: 'float64' });
+      const ref = drive(new FloatAdaptiveKernel(s), c.noise ?? false);
+      const fast = drive(new WasmAdaptiveKernel(s), c.noise ?? false);
+      let worst = 0;
+      for (let k = 0; k < s.taps; k++) worst = Math.max(worst, Math.abs(fast.w[k]! - ref.w[k]!));
+      expect(worst).toBeLessThan(1e-10);
+      let worstE = 0;
+      for (let i = 0; i < n; i++) worstE = Math.max(worstE, Math.abs(fast.e[i]! - ref.e[i]!));
+      expect(worstE).toBeLessThan(1e-10);
+      expect(fast.sat).toBe(ref.sat);
+      const firRef = driveFir(new FloatFirKernel(s), ref.w);
+      const firFast = driveFir(new WasmFirKernel(s), ref.w);
+      for (let i = 0; i < n; i++) expect(Math.abs(firFast.e[i]! - firRef.e[i]!)).toBeLessThan(1e-12);
+    });
+  }
+});
