@@ -144,16 +144,19 @@ export function validateConfig(data: unknown, file: string): Config {
   return deepFreeze(data);
 }
 
-/** The embedded default overlaid with `file` (if given), validated and frozen. */
-export function loadConfig(file?: string, overrides: Plain = {}): Config {
-  const base = readYaml(DEFAULT_CONFIG_PATH) as Plain;
-  let data: unknown = base;
-  if (file !== undefined) {
-    const user = readYaml(file);
+/**
+ * The embedded default overlaid with each file in turn (a base config, then a policy), validated
+ * and frozen. Errors name the last file.
+ */
+export function loadConfig(file?: string | readonly string[], overrides: Plain = {}): Config {
+  const files = file === undefined ? [] : typeof file === 'string' ? [file] : file;
+  let data = readYaml(DEFAULT_CONFIG_PATH) as Plain;
+  for (const f of files) {
+    const user = readYaml(f);
     if (!isPlain(user)) {
-      throw new TapwardenError('TW_ERR_CONFIG_VALUE', { file, detail: 'the top level must be a mapping of sections (input, filter, supervisor, output)' });
+      throw new TapwardenError('TW_ERR_CONFIG_VALUE', { file: f, detail: 'the top level must be a mapping of sections (input, filter, supervisor, output, ...)' });
     }
-    data = merge(base, user);
+    data = merge(data, user);
   }
-  return validateConfig(merge(data as Plain, overrides), file ?? DEFAULT_CONFIG_PATH);
+  return validateConfig(merge(data, overrides), files.at(-1) ?? DEFAULT_CONFIG_PATH);
 }

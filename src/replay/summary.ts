@@ -1,3 +1,4 @@
+import { DriftForecaster, trendPoints, type DriftForecast } from '../analysis/forecast.js';
 import type { Config } from '../config/schema.js';
 import type { EngineListener, PathFigures, WindowReport } from '../engine/dualPath.js';
 import { CRITERIA, type Criterion, type Outcome } from '../engine/supervisor.js';
@@ -10,6 +11,8 @@ export interface SeriesPoint {
   nonFiniteSamples: number;
   adaptive: PathFigures;
   clean: PathFigures;
+  /** The drift forecast for the adaptive path made at the end of this window. */
+  forecast: { limitEtaSeconds: number | null; meanBoundEtaSeconds: number | null };
 }
 
 export interface DecisionEvent {
@@ -38,10 +41,14 @@ export interface DecisionEvent {
 export interface Summary {
   tool: string;
   recording: string;
+  /** The policy's name (its config file's base name), or "default". */
+  policy: string;
   sampleRate: number;
   samples: number;
   durationSeconds: number;
   taps: number;
+  /** Output samples lag input samples by this much (pbfdaf: one block). */
+  latencySamples: number;
   config: Config;
   warnings: string[];
   handoffs: {
@@ -57,13 +64,42 @@ export interface Summary {
   weights: { adaptive: number[]; clean: number[]; cleanVersion: number };
   saturations: { adaptive: number; clean: number };
   nonFiniteSamples: number;
+  /** The arithmetic's largest |w| and the supervisor's bound on |weight mean|. */
+  limits: { weight: number; weightMean: number };
+  drift: {
+    /** The forecast at the end of the recording. */
+    final: DriftForecast;
+    /** When max |w| first reached the weight limit (a tap saturated), or null. */
+    firstLimitSeconds: number | null;
+    /** When |weight mean| first exceeded its bound, or null. */
+    firstMeanBoundSeconds: number | null;
+  };
   outputs: { clean: string; adaptive: string; clippedSamples: number };
   elapsedSeconds: number;
   realtimeFactor: number;
 }
 
-/** Collects the engine's window reports into the summary's counts, events and series. */
+/** Collects the engine's window reports into the summary's counts, events, series and drift forecast. */
 export class SummaryCollector implements EngineListener {
+  readonly limits: Summary['limits'];
+  private readonly forecaster: DriftForecaster;
+  private lastForecast: DriftForecast | null = null;
+  private firstLimitSeconds: number | null = null;
+  private firstMeanBoundSeconds: number | null = null;
+
+  constructor(config: Config, weightLimit: number) {
+    this.limits = { weight: weightLimit, weightMean: config.supervisor.maxWeightMean };
+    this.forecaster = new DriftForecaster(trendPoints(config.supervisor.windowSeconds));
+  }
+
+  drift(): Summary['drift'] {
+    return {
+      final: this.lastForecast ?? this.forecaster.forecast(this.limits.weight, this.limits.weightMean),
+      firstLimitSeconds: this.firstLimitSeconds,
+      firstMeanBoundSeconds: this.firstMeanBoundSeconds,
+    };
+  }
+
   readonly events: DecisionEvent[] = [];
   readonly series: SeriesPoint[] = [];
   readonly counts: Summary['handoffs'] = {
@@ -80,6 +116,12 @@ export class SummaryCollector implements EngineListener {
     this.counts[dec.outcome]++;
     if (dec.rollback) this.counts.rollbacks++;
     if (dec.outcome === 'rejected') for (const c of dec.failed) this.counts.rejectedBy[c]++;
+    const a = r.adaptive;
+    this.forecaster.push(r.timeSeconds, a.maxAbsWeight, a.weightMean);
+    const f = this.forecaster.forecast(this.limits.weight, this.limits.weightMean);
+    this.lastForecast = f;
+    if (this.firstLimitSeconds === null && a.maxAbsWeight >= this.limits.weight) this.firstLimitSeconds = r.timeSeconds;
+    if (this.firstMeanBoundSeconds === null && Math.abs(a.weightMean) > this.limits.weightMean) this.firstMeanBoundSeconds = r.timeSeconds;
     this.series.push({
       timeSeconds: r.timeSeconds,
       outcome: dec.outcome,
@@ -88,6 +130,7 @@ export class SummaryCollector implements EngineListener {
       nonFiniteSamples: r.nonFiniteSamples,
       adaptive: r.adaptive,
       clean: r.clean,
+      forecast: { limitEtaSeconds: f.limitEtaSeconds, meanBoundEtaSeconds: f.meanBoundEtaSeconds },
     });
     if (dec.outcome === 'idle') return;
     this.events.push({
@@ -117,6 +160,25 @@ export class SummaryCollector implements EngineListener {
 
 const fmtDb = (v: number): string => `${v.toFixed(1)} dB`;
 
+/** One line on the weights' drift: when a limit was reached, or when it will be. */
+export function describeDrift(s: Summary): string {
+  const d = s.drift;
+  if (d.firstLimitSeconds !== null) return `a tap reached the weight limit ${s.limits.weight.toPrecision(3)} at ${d.firstLimitSeconds.toFixed(1)} s`;
+  const eta = d.final.limitEtaSeconds;
+  const mean = d.final.meanBoundEtaSeconds;
+  const parts = [eta === null ? 'max |w| not rising' : `max |w| reaches the limit in ~${formatSeconds(eta)} at the current trend`];
+  if (d.firstMeanBoundSeconds !== null) parts.push(`|weight mean| passed its bound at ${d.firstMeanBoundSeconds.toFixed(1)} s`);
+  else if (mean !== null) parts.push(`|weight mean| reaches its bound in ~${formatSeconds(mean)}`);
+  return parts.join('; ');
+}
+
+export function formatSeconds(s: number): string {
+  if (s < 120) return `${s.toFixed(0)} s`;
+  if (s < 7200) return `${(s / 60).toFixed(0)} min`;
+  if (s < 172800) return `${(s / 3600).toFixed(1)} h`;
+  return `${(s / 86400).toFixed(0)} days`;
+}
+
 function median(xs: number[]): number {
   if (xs.length === 0) return NaN;
   const s = [...xs].sort((a, b) => a - b);
@@ -141,8 +203,9 @@ export function formatSummary(s: Summary, outDir: string): string {
     `handoffs    ${h.accepted} accepted, ${h.rejected} rejected${rejectedBy ? ` (${rejectedBy})` : ''}, ${h.rollbacks} rollbacks`,
     `clean path  cancellation median ${fmtDb(median(s.series.map((p) => p.clean.cancellationDb)))}, last quarter ${fmtDb(median(lastQuarter.map((p) => p.clean.cancellationDb)))}`,
     `saturations adaptive ${s.saturations.adaptive}, clean ${s.saturations.clean}; non-finite input samples ${s.nonFiniteSamples}`,
+    `drift       ${describeDrift(s)}`,
     `speed       ${s.realtimeFactor.toFixed(1)}x real time`,
-    `written     ${outDir}/summary.json, clean.wav, adaptive.wav`,
+    `written     ${outDir}/summary.json, clean.wav, adaptive.wav, report.html`,
   ];
   return lines.join('\n');
 }

@@ -1,52 +1,106 @@
-import { join } from 'node:path';
+import { basename, extname, join } from 'node:path';
+import { writeFileSync } from 'node:fs';
 import { DEFAULT_CONFIG_PATH, loadConfig } from '../../config/load.js';
 import { DEMO_RECORDING, writeDemo } from '../../demo/write.js';
-import { replay } from '../../replay/run.js';
-import { formatSummary } from '../../replay/summary.js';
+import { TapwardenError, oneLine } from '../../errors.js';
+import { renderReport } from '../../report/html.js';
+import { figuresOf, formatComparison, worseThan } from '../../replay/compare.js';
+import { replayPolicies, writeJsonAtomic, type Policy } from '../../replay/run.js';
+import { describeDrift, formatSummary } from '../../replay/summary.js';
 import type { Command } from '../command.js';
 import { progressBar } from '../progress.js';
 
+function policyName(file: string, taken: Set<string>): string {
+  const base = basename(file, extname(file));
+  let name = base;
+  for (let i = 2; taken.has(name); i++) name = `${base}-${i}`;
+  taken.add(name);
+  return name;
+}
+
 export const replayCommand: Command = {
-  summary: 'run a recording through the engine and write outputs and a summary',
-  usage: `Usage: tapwarden replay [REC.wav] [--config FILE] [--out DIR]
+  summary: 'run a recording through the engine (one or several policies) and report',
+  usage: `Usage: tapwarden replay [REC.wav] [--config FILE] [--policy P.yaml ...] [--gate BASELINE] [--out DIR]
 
 Runs the dual-path engine over a recording as fast as the CPU allows and writes
-DIR/summary.json, DIR/clean.wav (the output path) and DIR/adaptive.wav (the adapting path).
-With no REC, replays the demo bench recording (written to DIR first) with the embedded default.
+DIR/summary.json, DIR/clean.wav (the output path), DIR/adaptive.wav (the adapting path) and
+DIR/report.html. With no REC, replays the demo bench recording (written to DIR first).
+
+With --policy (repeatable), every policy runs over one decode of the recording: DIR/<policy>/
+holds each one's files, DIR/comparison.json and DIR/report.html compare them, and a table is
+printed. A policy file overlays the --config file (or the embedded default).
 
 Options:
-  --config FILE  YAML overriding config/default.yaml (keys in README.md)
-  --out DIR      output directory (default: tapwarden-out)
-  -h, --help     this help`,
+  --config FILE      YAML overriding config/default.yaml (keys in README.md)
+  --policy FILE      a candidate policy; give it several times to compare
+  --gate BASELINE    exit ${8} when a policy is worse than BASELINE (a --policy file or its name)
+  --out DIR          output directory (default: tapwarden-out)
+  -h, --help         this help`,
   options: {
     config: { type: 'string' },
+    policy: { type: 'string', multiple: true },
+    gate: { type: 'string' },
     out: { type: 'string', default: 'tapwarden-out' },
   },
   positionals: [0, 1],
   run(values, positionals) {
     const outDir = values['out'] as string;
     const configFile = values['config'] as string | undefined;
-    const config = loadConfig(configFile);
+    const policyFiles = (values['policy'] as string[] | undefined) ?? [];
+    const gateArg = values['gate'] as string | undefined;
+    const taken = new Set<string>();
+    const policies: Policy[] =
+      policyFiles.length === 0
+        ? [{ name: configFile ? policyName(configFile, taken) : 'default', config: loadConfig(configFile), configFile: configFile ?? DEFAULT_CONFIG_PATH }]
+        : policyFiles.map((f) => ({
+            name: policyName(f, taken),
+            config: loadConfig(configFile === undefined ? [f] : [configFile, f]),
+            configFile: f,
+          }));
+    const baseline = gateArg === undefined ? null : policies.find((p) => p.name === gateArg || p.configFile === gateArg);
+    if (gateArg !== undefined && (baseline === null || baseline === undefined)) {
+      throw new TapwardenError('TW_ERR_USAGE', { detail: `replay: --gate ${gateArg} is not one of the policies; allowed: ${policies.map((p) => p.name).join(', ')}` });
+    }
     let recording = positionals[0];
     if (recording === undefined) {
       writeDemo(outDir);
       recording = join(outDir, DEMO_RECORDING);
     }
     const bar = progressBar('replay');
-    let summary;
+    let result;
     try {
-      summary = replay({
-        recording,
-        config,
-        configFile: configFile ?? DEFAULT_CONFIG_PATH,
-        outDir,
-        onProgress: (done, total) => bar.update(done, total),
-      });
+      result = replayPolicies({ recording, policies, outDir, onProgress: (done, total) => bar.update(done, total) });
     } finally {
       bar.stop();
     }
-    for (const w of summary.warnings) process.stderr.write(`tapwarden: warning: ${w}\n`);
-    process.stdout.write(formatSummary(summary, outDir) + '\n');
+    const figures = result.summaries.map(figuresOf);
+    const worse = new Map<string, string[]>();
+    if (baseline) {
+      const base = figures.find((f) => f.name === baseline.name)!;
+      for (const f of figures) if (f !== base) worse.set(f.name, worseThan(f, base, baseline.config.supervisor.windowSeconds));
+    }
+    const gate = baseline ? { baseline: baseline.name, worse: Object.fromEntries(worse) } : null;
+    const report = renderReport({ recording, summaries: result.summaries, figures, gate, spectrum: result.spectrum, analysis: null });
+    try {
+      writeFileSync(join(outDir, 'report.html'), report);
+    } catch (err) {
+      throw new TapwardenError('TW_ERR_OUTPUT_WRITE', { file: join(outDir, 'report.html'), reason: oneLine(err) });
+    }
+    for (const w of new Set(result.summaries.flatMap((s) => s.warnings))) process.stderr.write(`tapwarden: warning: ${w}\n`);
+    if (policies.length === 1) {
+      process.stdout.write(formatSummary(result.summaries[0]!, outDir) + '\n');
+    } else {
+      writeJsonAtomic(join(outDir, 'comparison.json'), { recording, reads: result.reads, policies: figures, gate });
+      process.stdout.write(formatComparison(figures, baseline ? { baseline: baseline.name, worse } : null) + '\n');
+      for (const s of result.summaries) process.stdout.write(`${s.policy}: ${describeDrift(s)}\n`);
+      process.stdout.write(`written     ${outDir}/comparison.json, report.html, and per policy: summary.json, clean.wav, adaptive.wav\n`);
+    }
+    const failing = [...worse].filter(([, r]) => r.length > 0);
+    if (failing.length > 0) {
+      throw new TapwardenError('TW_ERR_GATE', {
+        detail: `gate: ${failing.map(([n, r]) => `${n} is worse than ${baseline!.name} (${r.join('; ')})`).join('; ')}`,
+      });
+    }
     return 0;
   },
 };
