@@ -17,7 +17,10 @@ export interface Band {
 
 export interface LeakCandidate {
   leak: number;
-  /** ||(R + gamma I)^-1 p - w0|| / ||w0||, w0 the unregularized (minimum-norm) solution. */
+  /**
+   * ||(R + gamma I)^-1 p - w0|| / ||w0||, with w0 the unregularized solution R^+ p over the
+   * directions the input excites (above the threshold; along the others R^-1 p only fits noise).
+   */
   relativeBias: number;
   /** Predicted cancellation with the leaky solution, dB. */
   cancellationDb: number;
@@ -122,7 +125,7 @@ export function analyzeExcitation(opts: {
     for (let i = 0; i < L; i++) s += V.get(i, idx) * p[i]!;
     return s; // u_i' p
   });
-  const tol = lambdaMax * 1e-12;
+  const tol = floor;
   // With w = sum c_i u_i: Pe = Pd - 2 sum c_i q_i + sum c_i^2 lambda_i.
   const errorPower = (c: number[]) => pd - c.reduce((s, ci, i) => s + 2 * ci * q[i]! - ci * ci * eigenvalues[i]!, 0);
   const w0 = eigenvalues.map((l, i) => (l > tol ? q[i]! / l : 0));
@@ -132,7 +135,8 @@ export function analyzeExcitation(opts: {
   for (const factor of [1e-1, 3e-2, 1e-2, 3e-3, 1e-3, 3e-4, 1e-4, 3e-5, 1e-5, 1e-6]) {
     const gamma = lambdaMax * factor;
     const wg = eigenvalues.map((l, i) => q[i]! / (Math.max(l, 0) + gamma));
-    const bias = Math.hypot(...wg.map((v, i) => v - w0[i]!)) / (w0Norm || 1);
+    // The bias is measured where w0 is defined: along the excited directions.
+    const bias = Math.hypot(...wg.map((v, i) => (eigenvalues[i]! > tol ? v - w0[i]! : 0))) / (w0Norm || 1);
     const cg = powerDb(pd) - powerDb(errorPower(wg));
     candidates.push({ leak: gamma, relativeBias: bias, cancellationDb: cg, lossDb: c0 - cg });
   }

@@ -1,16 +1,16 @@
 /**
- * Drift forecast: a least-squares line through the recent trend of a weight figure (max |w| or
- * |weight mean|) against time, extrapolated to a limit. Pure; fed one point per window.
+ * Drift forecast. Drift from biased arithmetic moves all taps together, along the weight-mean
+ * direction the input does not excite; so the forecast fits a least-squares line to the weight
+ * mean over the recent windows and moves the most extreme tap at that rate until it meets the
+ * limit. Pure; fed one point per window.
  */
 
 export interface DriftForecast {
-  /** Seconds from the last point until max |w| reaches the arithmetic's limit; null if not rising. */
+  /** Seconds from the last point until a tap reaches the arithmetic's limit; null if not drifting toward it. */
   limitEtaSeconds: number | null;
   /** Seconds until |weight mean| reaches the supervisor's bound; null if not rising. */
   meanBoundEtaSeconds: number | null;
-  /** Trend of max |w|, full scale per second. */
-  maxAbsSlopePerSecond: number;
-  /** Trend of |weight mean|, full scale per second. */
+  /** Trend of the weight mean, full scale per second (signed). */
   meanSlopePerSecond: number;
 }
 
@@ -43,32 +43,32 @@ function eta(slope: number, last: number, limit: number): number | null {
 
 export class DriftForecaster {
   private readonly t: number[] = [];
-  private readonly maxAbs: number[] = [];
   private readonly mean: number[] = [];
+  private min = 0;
+  private max = 0;
 
   /** `points`: how many recent windows the trend uses. */
   constructor(private readonly points: number) {}
 
-  push(timeSeconds: number, maxAbsWeight: number, weightMean: number): void {
+  /** One window: its end time, the weight mean, and the smallest and largest weight. */
+  push(timeSeconds: number, weightMean: number, minWeight: number, maxWeight: number): void {
     this.t.push(timeSeconds);
-    this.maxAbs.push(maxAbsWeight);
-    this.mean.push(Math.abs(weightMean));
+    this.mean.push(weightMean);
+    this.min = minWeight;
+    this.max = maxWeight;
     if (this.t.length > this.points) {
       this.t.shift();
-      this.maxAbs.shift();
       this.mean.shift();
     }
   }
 
   forecast(limit: number, meanBound: number): DriftForecast {
-    const a = trend(this.t, this.maxAbs);
     const m = trend(this.t, this.mean);
-    return {
-      limitEtaSeconds: eta(a.slope, a.last, limit),
-      meanBoundEtaSeconds: eta(m.slope, m.last, meanBound),
-      maxAbsSlopePerSecond: a.slope,
-      meanSlopePerSecond: m.slope,
-    };
+    const r = m.slope;
+    // The extreme tap in the direction of the drift meets the limit first.
+    const limitEtaSeconds = r < 0 ? eta(-r, -this.min, limit) : eta(r, this.max, limit);
+    const meanBoundEtaSeconds = eta(Math.sign(m.last) * r, Math.abs(m.last), meanBound);
+    return { limitEtaSeconds, meanBoundEtaSeconds, meanSlopePerSecond: r };
   }
 }
 

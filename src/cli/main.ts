@@ -3,6 +3,7 @@ import { parseArgs } from 'node:util';
 import { TapwardenError, oneLine } from '../errors.js';
 import { VERSION } from '../version.js';
 import type { Command } from './command.js';
+import { analyze } from './commands/analyze.js';
 import { bench } from './commands/bench.js';
 import { demo } from './commands/demo.js';
 import { devices } from './commands/devices.js';
@@ -14,6 +15,7 @@ const COMMANDS: Record<string, Command> = {
   replay: replayCommand,
   serve,
   devices,
+  analyze,
   bench,
 };
 

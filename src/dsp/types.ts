@@ -34,6 +34,9 @@ export interface WeightStats {
   mean: number;
   norm: number;
   maxAbs: number;
+  /** The smallest and largest weight (signed). */
+  min: number;
+  max: number;
 }
 
 /**
@@ -83,16 +86,19 @@ export interface FirKernel {
 export function statsOf(w: ArrayLike<number>, scale: number, out: WeightStats): WeightStats {
   let sum = 0;
   let sq = 0;
-  let max = 0;
+  let lo = Infinity;
+  let hi = -Infinity;
   for (let k = 0; k < w.length; k++) {
     const v = w[k]! * scale;
     sum += v;
     sq += v * v;
-    const a = v < 0 ? -v : v;
-    if (a > max) max = a;
+    if (v < lo) lo = v;
+    if (v > hi) hi = v;
   }
   out.mean = sum / w.length;
   out.norm = Math.sqrt(sq);
-  out.maxAbs = max;
+  out.min = lo;
+  out.max = hi;
+  out.maxAbs = Math.max(-lo, hi);
   return out;
 }

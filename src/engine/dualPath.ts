@@ -18,6 +18,9 @@ export interface PathFigures {
   weightMean: number;
   weightNorm: number;
   maxAbsWeight: number;
+  /** Smallest and largest weight (signed). */
+  minWeight: number;
+  maxWeight: number;
   /** Clipped stores during the window. */
   saturations: number;
 }
@@ -79,8 +82,8 @@ export class DualPathEngine {
   private readonly eC = new Float64Array(CHUNK);
   private readonly yOld = new Float64Array(CHUNK);
   private readonly eOld = new Float64Array(CHUNK);
-  private readonly wsA: WeightStats = { mean: 0, norm: 0, maxAbs: 0 };
-  private readonly wsC: WeightStats = { mean: 0, norm: 0, maxAbs: 0 };
+  private readonly wsA: WeightStats = { mean: 0, norm: 0, maxAbs: 0, min: 0, max: 0 };
+  private readonly wsC: WeightStats = { mean: 0, norm: 0, maxAbs: 0, min: 0, max: 0 };
 
   private supervisorState: SupervisorState = INITIAL_STATE;
   private handoffsFrozen = false;
@@ -285,6 +288,8 @@ export class DualPathEngine {
       weightMean: ws.mean,
       weightNorm: ws.norm,
       maxAbsWeight: ws.maxAbs,
+      minWeight: ws.min,
+      maxWeight: ws.max,
       saturations,
     };
   }

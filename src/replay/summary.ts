@@ -117,7 +117,7 @@ export class SummaryCollector implements EngineListener {
     if (dec.rollback) this.counts.rollbacks++;
     if (dec.outcome === 'rejected') for (const c of dec.failed) this.counts.rejectedBy[c]++;
     const a = r.adaptive;
-    this.forecaster.push(r.timeSeconds, a.maxAbsWeight, a.weightMean);
+    this.forecaster.push(r.timeSeconds, a.weightMean, a.minWeight, a.maxWeight);
     const f = this.forecaster.forecast(this.limits.weight, this.limits.weightMean);
     this.lastForecast = f;
     if (this.firstLimitSeconds === null && a.maxAbsWeight >= this.limits.weight) this.firstLimitSeconds = r.timeSeconds;
@@ -166,7 +166,7 @@ export function describeDrift(s: Summary): string {
   if (d.firstLimitSeconds !== null) return `a tap reached the weight limit ${s.limits.weight.toPrecision(3)} at ${d.firstLimitSeconds.toFixed(1)} s`;
   const eta = d.final.limitEtaSeconds;
   const mean = d.final.meanBoundEtaSeconds;
-  const parts = [eta === null ? 'max |w| not rising' : `max |w| reaches the limit in ~${formatSeconds(eta)} at the current trend`];
+  const parts = [eta === null ? 'no drift toward the weight limit' : `a tap reaches the weight limit in ~${formatSeconds(eta)} at the current drift`];
   if (d.firstMeanBoundSeconds !== null) parts.push(`|weight mean| passed its bound at ${d.firstMeanBoundSeconds.toFixed(1)} s`);
   else if (mean !== null) parts.push(`|weight mean| reaches its bound in ~${formatSeconds(mean)}`);
   return parts.join('; ');

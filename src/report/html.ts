@@ -203,7 +203,7 @@ const REPORT_SCRIPT = String.raw`
     sec.appendChild(el('h2', {}, 'Policy ' + p.name + ': ' + p.filter));
     const d = p.drift;
     sec.appendChild(el('p', { className: 'note' }, d.firstLimitSeconds !== null ? 'A tap reached the weight limit at ' + d.firstLimitSeconds.toFixed(1) + ' s.' :
-      d.final.limitEtaSeconds === null ? 'max |w| was not rising at the end.' : 'At the end, max |w| was rising: the limit would be reached in about ' + d.final.limitEtaSeconds.toFixed(0) + ' s.'));
+      d.final.limitEtaSeconds === null ? 'At the end the weights were not drifting toward the limit.' : 'At the end the weights were drifting: a tap would reach the limit in about ' + d.final.limitEtaSeconds.toFixed(0) + ' s.'));
 
     // decision markers, drawn over a plot, hover for the failed criteria
     const markers = (key) => ({

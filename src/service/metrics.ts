@@ -1,4 +1,5 @@
 import { Counter, Gauge, Histogram, Registry, collectDefaultMetrics } from 'prom-client';
+import type { DriftForecast } from '../analysis/forecast.js';
 import type { WindowReport } from '../engine/dualPath.js';
 import { CRITERIA } from '../engine/supervisor.js';
 
@@ -52,6 +53,16 @@ export class ServiceMetrics {
   readonly feedDropped = new Counter({ name: 'tapwarden_feed_dropped_messages_total', help: 'Feed messages not sent to a client that had fallen behind.', registers: [this.registry] });
   readonly weightMeanLimit = new Gauge({ name: 'tapwarden_weight_mean_limit', help: 'The supervisor bound on |weight mean| (supervisor.maxWeightMean).', registers: [this.registry] });
   readonly weightLimit = new Gauge({ name: 'tapwarden_weight_limit', help: 'The largest |w| the arithmetic stores (1 in fixed point, filter.weightLimit in float).', registers: [this.registry] });
+  readonly limitEta = new Gauge({
+    name: 'tapwarden_weight_limit_eta_seconds',
+    help: 'Forecast seconds until an adaptive tap reaches the weight limit at the current weight-mean drift (+Inf when not drifting toward it).',
+    registers: [this.registry],
+  });
+  readonly meanBoundEta = new Gauge({
+    name: 'tapwarden_weight_mean_bound_eta_seconds',
+    help: 'Forecast seconds until |adaptive weight mean| reaches supervisor.maxWeightMean (+Inf when not rising).',
+    registers: [this.registry],
+  });
   readonly snapshots = new Counter({ name: 'tapwarden_snapshot_writes_total', help: 'Weight snapshot writes by result.', labelNames: ['result'], registers: [this.registry] });
 
   constructor() {
@@ -76,6 +87,11 @@ export class ServiceMetrics {
     this.accepted.labels('supervisor').inc(0);
     this.adapting.set(1);
     this.handoffsEnabled.set(1);
+  }
+
+  onForecast(f: DriftForecast): void {
+    this.limitEta.set(f.limitEtaSeconds ?? Infinity);
+    this.meanBoundEta.set(f.meanBoundEtaSeconds ?? Infinity);
   }
 
   onWindow(r: WindowReport): void {

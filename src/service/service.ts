@@ -2,6 +2,7 @@ import { readFileSync } from 'node:fs';
 import { mkdtempSync } from 'node:fs';
 import { tmpdir } from 'node:os';
 import { join } from 'node:path';
+import { DriftForecaster, trendPoints, type DriftForecast } from '../analysis/forecast.js';
 import type { Config } from '../config/schema.js';
 import { DEMO_RECORDING, writeDemo } from '../demo/write.js';
 import { weightLimitOf } from '../dsp/kernels.js';
@@ -92,6 +93,7 @@ export async function startService(config: Config, configFile: string): Promise<
   let workerFailed: string | null = null;
   let flags = { adapting: true, handoffsHeld: false, cleanVersion: 0 };
   let lastHandoff: { at: string; version: number; reason: string } | null = null;
+  let forecast: DriftForecast | null = null;
   const startedAt = Date.now();
 
   const status = () => ({
@@ -110,6 +112,7 @@ export async function startService(config: Config, configFile: string): Promise<
     },
     lastWindow: last,
     lastHandoff,
+    forecast,
     recentDecisions: recent,
   });
 
@@ -167,9 +170,13 @@ export async function startService(config: Config, configFile: string): Promise<
     metrics.queueDepth.set(host.inFlight);
     metrics.setTotals({ ...host.saturations, nonFinite: host.nonFiniteSamples, overruns: host.overruns });
   });
+  const forecaster = new DriftForecaster(trendPoints(config.supervisor.windowSeconds));
   host.on('window', (r) => {
     last = r;
     metrics.onWindow(r);
+    forecaster.push(r.timeSeconds, r.adaptive.weightMean, r.adaptive.minWeight, r.adaptive.maxWeight);
+    forecast = forecaster.forecast(weightLimitOf(settings.filter), config.supervisor.maxWeightMean);
+    metrics.onForecast(forecast);
     const d = r.decision;
     const decision = {
       type: 'decision',
@@ -212,7 +219,7 @@ export async function startService(config: Config, configFile: string): Promise<
 
   const feed = new StatusFeed(app.server, config.feed, metrics, () => {
     const s = status();
-    return { time: new Date().toISOString(), stream: s.stream, engine: s.engine, lastWindow: s.lastWindow, lastHandoff: s.lastHandoff };
+    return { time: new Date().toISOString(), stream: s.stream, engine: s.engine, lastWindow: s.lastWindow, lastHandoff: s.lastHandoff, forecast: s.forecast };
   });
 
   let address: string;

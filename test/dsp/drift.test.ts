@@ -21,7 +21,7 @@ function trace(s: AdaptiveSpec) {
   const k = createAdaptiveKernel(s);
   const y = new Float64Array(n);
   const e = new Float64Array(n);
-  const stats = { mean: 0, norm: 0, maxAbs: 0 };
+  const stats = { mean: 0, norm: 0, maxAbs: 0, min: 0, max: 0 };
   let peakMaxAbs = 0;
   let peakMean = 0;
   const block = 4000;
