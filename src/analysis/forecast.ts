@@ -14,10 +14,13 @@ export interface DriftForecast {
   meanSlopePerSecond: number;
 }
 
-/** Slope and value at the last point of the least-squares line through (t, y). */
-export function trend(t: readonly number[], y: readonly number[]): { slope: number; last: number } {
+/**
+ * Slope, its standard error, and the value at the last point of the least-squares line through
+ * (t, y).
+ */
+export function trend(t: readonly number[], y: readonly number[]): { slope: number; slopeError: number; last: number } {
   const n = t.length;
-  if (n < 2) return { slope: 0, last: y[n - 1] ?? 0 };
+  if (n < 3) return { slope: 0, slopeError: Infinity, last: y[n - 1] ?? 0 };
   let st = 0;
   let sy = 0;
   for (let i = 0; i < n; i++) {
@@ -33,8 +36,14 @@ export function trend(t: readonly number[], y: readonly number[]): { slope: numb
     den += (t[i]! - mt) ** 2;
   }
   const slope = den > 0 ? num / den : 0;
-  return { slope, last: my + slope * (t[n - 1]! - mt) };
+  let residual = 0;
+  for (let i = 0; i < n; i++) residual += (y[i]! - my - slope * (t[i]! - mt)) ** 2;
+  const slopeError = den > 0 ? Math.sqrt(residual / (n - 2) / den) : Infinity;
+  return { slope, slopeError, last: my + slope * (t[n - 1]! - mt) };
 }
+
+/** A slope counts as drift only when it stands out of the scatter by this many standard errors. */
+const SIGNIFICANCE = 3;
 
 function eta(slope: number, last: number, limit: number): number | null {
   if (!(slope > 0) || !Number.isFinite(limit)) return null;
@@ -64,11 +73,12 @@ export class DriftForecaster {
 
   forecast(limit: number, meanBound: number): DriftForecast {
     const m = trend(this.t, this.mean);
-    const r = m.slope;
+    // A weight mean that wanders with the signal is not drift: no forecast from it.
+    const r = Math.abs(m.slope) > SIGNIFICANCE * m.slopeError ? m.slope : 0;
     // The extreme tap in the direction of the drift meets the limit first.
     const limitEtaSeconds = r < 0 ? eta(-r, -this.min, limit) : eta(r, this.max, limit);
     const meanBoundEtaSeconds = eta(Math.sign(m.last) * r, Math.abs(m.last), meanBound);
-    return { limitEtaSeconds, meanBoundEtaSeconds, meanSlopePerSecond: r };
+    return { limitEtaSeconds, meanBoundEtaSeconds, meanSlopePerSecond: m.slope };
   }
 }
 
