@@ -1,6 +1,8 @@
 import type { Algorithm, Arithmetic } from '../dsp/types.js';
 import { GaussianNoise } from '../dsp/noise.js';
+import { loadConfig } from '../config/load.js';
 import { DualPathEngine } from '../engine/dualPath.js';
+import { engineSettingsOf } from '../engine/settings.js';
 
 export interface BenchCase {
   readonly algorithm: Algorithm;
@@ -49,36 +51,18 @@ export function benchEngine(c: BenchCase): BenchResult {
   const warm = c.rate;
   const n = Math.round(c.seconds * c.rate);
   const { x, d } = synthetic(BLOCK * 4, c.taps);
-  const engine = new DualPathEngine({
-    sampleRate: c.rate,
+  // The embedded default config, with the case's filter: the same settings a user would run.
+  const config = loadConfig(undefined, {
     filter: {
       algorithm: c.algorithm,
       taps: c.taps,
-      step: c.algorithm === 'lms' ? 0.01 : 0.5,
-      delta: 1e-6,
-      leak: 0,
-      leakShift: null,
-      meanRemovalEvery: null,
       arithmetic: c.arithmetic,
-      rounding: 'nearest',
-      weightLimit: 1000,
-      noiseInjectionDb: null,
-      noiseSeed: 1,
-      blockSize: c.blockSize ?? 256,
-      constrained: c.constrained ?? true,
+      step: c.algorithm === 'lms' ? 0.01 : 0.5,
+      ...(c.blockSize === undefined ? {} : { blockSize: c.blockSize }),
+      ...(c.constrained === undefined ? {} : { constrained: c.constrained }),
     },
-    supervisor: {
-      windowSeconds: 0.5,
-      crossfadeSeconds: 0.02,
-      minCancellationDb: 6,
-      maxWeightMean: 0.1,
-      marginDb: 1,
-      passesRequired: 2,
-      rollbackAfter: null,
-      minReferencePowerDb: null,
-    },
-    outputSignal: 'error',
   });
+  const engine = new DualPathEngine(engineSettingsOf(config, c.rate));
   const clean = new Float64Array(BLOCK);
   const adaptive = new Float64Array(BLOCK);
   const feed = (count: number) => {

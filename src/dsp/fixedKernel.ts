@@ -63,10 +63,33 @@ class Dot {
   }
 }
 
+/** Stores into a format's registers: saturating, counting every clip. */
+class Registers {
+  saturations = 0;
+  readonly scale: number;
+
+  constructor(
+    readonly fmt: QFormat,
+    readonly rounding: Rounding,
+  ) {
+    this.scale = 2 ** -fmt.fracBits;
+  }
+
+  clip(v: number): number {
+    const s = saturate(v, this.fmt);
+    if (s !== v) this.saturations++;
+    return s;
+  }
+
+  /** A real value quantized to the format. */
+  q(v: number): number {
+    return this.clip(scaleRound(v, this.fmt.fracBits, this.rounding));
+  }
+}
 
 export class FixedAdaptiveKernel implements AdaptiveKernel {
   adapting = true;
-  saturations = 0;
+  private readonly regs: Registers;
   private readonly fmt: QFormat;
   private readonly scale: number;
   private readonly W: Float64Array;
@@ -81,7 +104,8 @@ export class FixedAdaptiveKernel implements AdaptiveKernel {
 
   constructor(readonly spec: AdaptiveSpec) {
     this.fmt = formatOf(spec.arithmetic);
-    this.scale = 2 ** -this.fmt.fracBits;
+    this.regs = new Registers(this.fmt, spec.rounding);
+    this.scale = this.regs.scale;
     this.W = new Float64Array(spec.taps);
     this.evalLine = new DelayLine(spec.taps, (n) => new Float64Array(n));
     this.adaptLine = new DelayLine(spec.taps, (n) => new Float64Array(n));
@@ -97,14 +121,16 @@ export class FixedAdaptiveKernel implements AdaptiveKernel {
     return shift === 0 ? v * v : mulShift(v, v, shift, this.spec.rounding);
   }
 
+  get saturations(): number {
+    return this.regs.saturations;
+  }
+
   private clip(v: number): number {
-    const s = saturate(v, this.fmt);
-    if (s !== v) this.saturations++;
-    return s;
+    return this.regs.clip(v);
   }
 
   private q(v: number): number {
-    return this.clip(scaleRound(v, this.fmt.fracBits, this.spec.rounding));
+    return this.regs.q(v);
   }
 
   run(
@@ -133,7 +159,7 @@ export class FixedAdaptiveKernel implements AdaptiveKernel {
       this.energy += this.energyTerm(line.buf[line.pos]!) - this.energyTerm(old);
 
       const yEval = dot.compute(W, this.evalLine.buf, this.evalLine.pos, L);
-      if (dot.clipped) this.saturations++;
+      if (dot.clipped) this.regs.saturations++;
       const eEval = this.clip(dq - yEval);
       y[n] = yEval * this.scale;
       e[n] = eEval * this.scale;
@@ -142,7 +168,7 @@ export class FixedAdaptiveKernel implements AdaptiveKernel {
       let err = eEval;
       if (line !== this.evalLine) {
         const yA = dot.compute(W, line.buf, line.pos, L);
-        if (dot.clipped) this.saturations++;
+        if (dot.clipped) this.regs.saturations++;
         err = this.clip(dq - yA);
       }
       const s =
@@ -197,7 +223,7 @@ export class FixedAdaptiveKernel implements AdaptiveKernel {
 }
 
 export class FixedFirKernel implements FirKernel {
-  saturations = 0;
+  private readonly regs: Registers;
   private readonly fmt: QFormat;
   private readonly scale: number;
   private readonly W: Float64Array;
@@ -206,7 +232,8 @@ export class FixedFirKernel implements FirKernel {
 
   constructor(private readonly spec: AdaptiveSpec) {
     this.fmt = formatOf(spec.arithmetic);
-    this.scale = 2 ** -this.fmt.fracBits;
+    this.regs = new Registers(this.fmt, spec.rounding);
+    this.scale = this.regs.scale;
     this.W = new Float64Array(spec.taps);
     this.line = new DelayLine(spec.taps, (n) => new Float64Array(n));
     this.dot = new Dot(this.fmt, spec.rounding);
@@ -216,25 +243,20 @@ export class FixedFirKernel implements FirKernel {
     return this.W.length;
   }
 
+  get saturations(): number {
+    return this.regs.saturations;
+  }
+
   run(x: Float64Array, d: Float64Array, y: Float64Array, e: Float64Array, start: number, end: number): void {
     const L = this.W.length;
     for (let n = start; n < end; n++) {
-      this.line.push(this.q(x[n]!));
+      const regs = this.regs;
+      this.line.push(regs.q(x[n]!));
       const v = this.dot.compute(this.W, this.line.buf, this.line.pos, L);
-      if (this.dot.clipped) this.saturations++;
+      if (this.dot.clipped) regs.saturations++;
       y[n] = v * this.scale;
-      e[n] = this.clip(this.q(d[n]!) - v) * this.scale;
+      e[n] = regs.clip(regs.q(d[n]!) - v) * this.scale;
     }
-  }
-
-  private clip(v: number): number {
-    const s = saturate(v, this.fmt);
-    if (s !== v) this.saturations++;
-    return s;
-  }
-
-  private q(v: number): number {
-    return this.clip(scaleRound(v, this.fmt.fracBits, this.spec.rounding));
   }
 
   getWeights(): Float64Array {

@@ -192,7 +192,7 @@ describe('bad input: one clear line, a non-zero exit, no stack trace', () => {
   });
 
   it('every command has --help', () => {
-    for (const c of ['demo', 'replay']) {
+    for (const c of ['demo', 'replay', 'serve', 'devices', 'analyze', 'bench']) {
       const r = cli([c, '--help']);
       expect(r.status).toBe(0);
       expect(r.stdout).toMatch(new RegExp(`^Usage: tapwarden ${c}`));

@@ -28,8 +28,14 @@ function positive(key: string, value: string | undefined, fallback: number, inte
   return v;
 }
 
-/** The pbfdaf block size the bench uses: N = L/4 between 64 and 1024 (latency N samples). */
-const blockFor = (taps: number) => Math.max(Math.min(1024, taps / 4), Math.min(64, taps));
+/**
+ * The pbfdaf block size the bench uses: the largest power of two up to min(1024, L/4) that divides
+ * L, at least 16 (latency N samples); null when there is none.
+ */
+function blockFor(taps: number): number | null {
+  for (let n = 1024; n >= 16; n /= 2) if (n <= Math.max(16, taps / 4) && taps % n === 0) return n;
+  return null;
+}
 
 export const bench: Command = {
   summary: "measure the engine's throughput on this machine, beside a C reference",
@@ -71,6 +77,10 @@ Options:
     if (rows.some((r) => r.algorithm === 'pbfdaf' && r.arithmetic !== 'float64')) {
       throw new TapwardenError('TW_ERR_USAGE', { detail: 'bench: pbfdaf runs in float64 only' });
     }
+    const bad = rows.some((r) => r.algorithm === 'pbfdaf') ? taps.find((L) => blockFor(L) === null) : undefined;
+    if (bad !== undefined) {
+      throw new TapwardenError('TW_ERR_USAGE', { detail: `bench: pbfdaf needs taps divisible by a block size of at least 16; ${bad} is not` });
+    }
     const c = rows.some((r) => r.algorithm === 'nlms' && r.arithmetic === 'float64') ? buildCReference() : { skipped: 'not an NLMS float64 case' };
     const numpy = numpyAvailable();
     const json = values['json'] === true;
@@ -82,15 +92,15 @@ Options:
     }
     for (const row of rows) {
       for (const L of taps) {
-        if (row.algorithm === 'pbfdaf' && L % blockFor(L) !== 0) continue;
-        const r = benchEngine({ ...row, taps: L, rate, seconds, blockSize: blockFor(L) });
+        const block = blockFor(L);
+        const r = benchEngine({ ...row, taps: L, rate, seconds, blockSize: block ?? 256 });
         let cRef: ReferenceResult | null = null;
         let npRef: ReferenceResult | null = null;
         if (row.algorithm === 'nlms' && row.arithmetic === 'float64') {
           if ('binary' in c) cRef = runCReference(c.binary, L, seconds, rate);
           if (numpy) npRef = runNumpyReference(L, Math.min(seconds, 1), rate);
         }
-        const name = row.algorithm === 'pbfdaf' ? `pbfdaf N=${blockFor(L)} ${row.constrained === false ? 'unconstr.' : 'constr.'}` : row.algorithm;
+        const name = row.algorithm === 'pbfdaf' ? `pbfdaf N=${block} ${row.constrained === false ? 'unconstr.' : 'constr.'}` : row.algorithm;
         const out = {
           algorithm: r.algorithm,
           ...(r.algorithm === 'pbfdaf' ? { blockSize: r.blockSize, constrained: r.constrained } : {}),

@@ -1,0 +1,32 @@
+import { describe, expect, it } from 'vitest';
+import { cli } from '../helpers/tools.js';
+
+// The bench prints figures; no test asserts a timing (README "Sizing a rig" has the measured table).
+describe('tapwarden bench', () => {
+  it('--json prints one object with the documented fields, and the C reference beside NLMS float64', () => {
+    const r = cli(['bench', '--taps', '64', '--seconds', '0.2', '--json']);
+    expect(r.status).toBe(0);
+    const o = JSON.parse(r.stdout);
+    expect(o).toMatchObject({ algorithm: 'nlms', taps: 64, arithmetic: 'float64', rate: 48000 });
+    expect(o.samplesPerSecond).toBeGreaterThan(0);
+    expect(o.realtimeFactor).toBeCloseTo(o.samplesPerSecond / 48000, 1);
+    // gcc is on every machine this runs on (node-gyp needs it): the C reference ran.
+    expect(o.cSamplesPerSecond).toBeGreaterThan(0);
+    expect(o.ratioToC).toBeCloseTo(o.samplesPerSecond / o.cSamplesPerSecond, 2);
+  });
+
+  it('runs the other algorithms and arithmetics', () => {
+    for (const args of [['--arithmetic', 'q15'], ['--arithmetic', 'q31'], ['--algorithm', 'pbfdaf', '--taps', '256'], ['--algorithm', 'lms']]) {
+      const r = cli(['bench', '--taps', '64', ...args, '--seconds', '0.1', '--json']);
+      expect(r.status, args.join(' ')).toBe(0);
+      expect(JSON.parse(r.stdout).realtimeFactor).toBeGreaterThan(0);
+    }
+  });
+
+  it('bad options: one line naming what is allowed', () => {
+    const r = cli(['bench', '--arithmetic', 'q7']);
+    expect(r.status).toBe(2);
+    expect(r.stderr.trim()).toBe('tapwarden: bench: --arithmetic q7 is not allowed; allowed: float64, float32, q15, q31 [TW_ERR_USAGE]');
+    expect(cli(['bench', '--taps=0']).stderr).toMatch(/--taps 0 is not allowed; allowed: a positive integer/);
+  });
+});
