@@ -104,6 +104,13 @@ class PartitionedFilter {
   /** Input spectra, newest first: history[(head + p) % P] is p blocks old. */
   readonly history: Float64Array[];
   head = 0;
+  /** Blocks completed since the last clear: two filters fed the same stream agree on it. */
+  blockCount = 0;
+  /**
+   * A filter fed the same input (the adaptive path, for the clean path): when it has already
+   * transformed this block, its spectrum is copied instead of computing the same FFT again.
+   */
+  partner: PartitionedFilter | null = null;
   readonly weights: Float64Array[];
   readonly inBuf: Float64Array;
   readonly dBuf: Float64Array;
@@ -141,7 +148,10 @@ class PartitionedFilter {
       if (++this.fill === N) {
         this.fill = 0;
         this.head = (this.head + this.P - 1) % this.P;
-        this.rfft.forward(this.inBuf, this.history[this.head]!);
+        const p = this.partner;
+        if (p !== null && p.blockCount === this.blockCount + 1) this.history[this.head]!.set(p.history[p.head]!);
+        else this.rfft.forward(this.inBuf, this.history[this.head]!);
+        this.blockCount++;
         block();
         this.inBuf.copyWithin(0, N);
       }
@@ -197,19 +207,22 @@ class PartitionedFilter {
     this.outY.set(o.outY);
     this.outE.set(o.outE);
     this.fill = o.fill;
+    this.blockCount = o.blockCount;
   }
 
   clear(): void {
     for (const a of [...this.history, ...this.weights, this.inBuf, this.dBuf, this.outY, this.outE]) a.fill(0);
     this.head = 0;
     this.fill = 0;
+    this.blockCount = 0;
   }
 }
 
 export class FdafAdaptiveKernel implements AdaptiveKernel {
   adapting = true;
   readonly saturations = 0;
-  private readonly pf: PartitionedFilter;
+  /** @internal shared with the clean path's filter (see PartitionedFilter.partner). */
+  readonly pf: PartitionedFilter;
   private readonly power: Float64Array;
   private readonly E: Float64Array;
   private readonly G: Float64Array;
@@ -307,8 +320,10 @@ export class FdafFirKernel implements FirKernel {
   readonly saturations = 0;
   private readonly pf: PartitionedFilter;
 
-  constructor(spec: AdaptiveSpec, opts: FdafOptions) {
+  /** `partner`: the adaptive path fed the same reference, whose input spectra this one reuses. */
+  constructor(spec: AdaptiveSpec, opts: FdafOptions, partner?: FdafAdaptiveKernel) {
     this.pf = new PartitionedFilter(spec.taps, opts.blockSize);
+    this.pf.partner = partner?.pf ?? null;
   }
 
   get taps(): number {

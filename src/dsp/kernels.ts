@@ -27,9 +27,14 @@ export function createAdaptiveKernel(spec: AdaptiveSpec, choice?: KernelChoice):
   return isFixed(spec) ? new FixedAdaptiveKernel(spec) : new FloatAdaptiveKernel(spec);
 }
 
-/** The fixed-weight filter for the clean path, in the same arithmetic. */
-export function createFirKernel(spec: AdaptiveSpec, choice?: KernelChoice): FirKernel {
-  if (spec.algorithm === 'pbfdaf') return new FdafFirKernel(spec, fdafOptions(spec));
+/**
+ * The fixed-weight filter for the clean path, in the same arithmetic. `partner`, the adaptive
+ * kernel fed the same reference, lets a frequency-domain clean path reuse its input transforms.
+ */
+export function createFirKernel(spec: AdaptiveSpec, choice?: KernelChoice, partner?: AdaptiveKernel): FirKernel {
+  if (spec.algorithm === 'pbfdaf') {
+    return new FdafFirKernel(spec, fdafOptions(spec), partner instanceof FdafAdaptiveKernel ? partner : undefined);
+  }
   if (useFast(spec, choice)) return new WasmFirKernel(spec);
   return isFixed(spec) ? new FixedFirKernel(spec) : new FloatFirKernel(spec);
 }

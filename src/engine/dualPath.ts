@@ -111,8 +111,8 @@ export class DualPathEngine {
     this.windowSamples = Math.max(1, Math.round(supervisor.windowSeconds * sampleRate));
     this.crossfadeSamples = Math.max(0, Math.round(supervisor.crossfadeSeconds * sampleRate));
     this.adaptive = createAdaptiveKernel(filter);
-    this.clean = createFirKernel(filter);
-    this.fading = createFirKernel(filter);
+    this.clean = createFirKernel(filter, undefined, this.adaptive);
+    this.fading = createFirKernel(filter, undefined, this.adaptive);
     this.noiseGen = filter.noiseInjectionDb === null ? null : new GaussianNoise(filter.noiseSeed);
     this.noiseSigma = filter.noiseInjectionDb === null ? 0 : sigmaOfDb(filter.noiseInjectionDb);
     this.cleanSnapshot = { version: 0, weights: new Float64Array(filter.taps), sample: 0, reason: 'restored' };

@@ -29,11 +29,11 @@ function positive(key: string, value: string | undefined, fallback: number, inte
 }
 
 /**
- * The pbfdaf block size the bench uses: the largest power of two up to min(1024, L/4) that divides
+ * The pbfdaf block size the bench uses: the largest power of two up to min(2048, L/2) that divides
  * L, at least 16 (latency N samples); null when there is none.
  */
 function blockFor(taps: number): number | null {
-  for (let n = 1024; n >= 16; n /= 2) if (n <= Math.max(16, taps / 4) && taps % n === 0) return n;
+  for (let n = 2048; n >= 16; n /= 2) if (n <= Math.max(16, taps / 2) && taps % n === 0) return n;
   return null;
 }
 

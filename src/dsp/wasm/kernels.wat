@@ -229,6 +229,46 @@
       (br $l)))
     (local.get $s))
 
+  ;; The same without leak (c = 0): w <- w + g x(n-1). (w - 0 w equals w except for the sign of a
+  ;; zero weight, which no output can see.)
+  (func $fused64Plain (param $o i32) (param $pos i32) (param $g f64) (result f64)
+    (local $k i32) (local $a0 v128) (local $a1 v128) 
+    (local $w0 v128) (local $w1 v128) (local $gv v128) (local $x0 v128) (local $x1 v128)
+    (local $s f64) (local $w f64) (local $L4 i32) (local $px i32) (local $pw i32)
+    (local.set $L4 (i32.and (global.get $L) (i32.const -4)))
+    (local.set $px (i32.add (local.get $o) (i32.shl (local.get $pos) (i32.const 3))))
+    (local.set $pw (global.get $oW))
+    (local.set $gv (f64x2.splat (local.get $g)))
+    (block $done (loop $l
+      (br_if $done (i32.ge_u (local.get $k) (local.get $L4)))
+      ;; x(n) = line[pos + k .. + 4), x(n-1) = line[pos + 1 + k ..]: loaded at offsets 8 and 24
+      (local.set $x0 (v128.load (local.get $px)))
+      (local.set $x1 (v128.load offset=16 (local.get $px)))
+      (local.set $w0 (v128.load (local.get $pw)))
+      (local.set $w1 (v128.load offset=16 (local.get $pw)))
+      (local.set $w0 (f64x2.add (local.get $w0) (f64x2.mul (local.get $gv) (v128.load offset=8 (local.get $px)))))
+      (local.set $w1 (f64x2.add (local.get $w1) (f64x2.mul (local.get $gv) (v128.load offset=24 (local.get $px)))))
+      (v128.store (local.get $pw) (local.get $w0))
+      (v128.store offset=16 (local.get $pw) (local.get $w1))
+      (local.set $a0 (f64x2.add (local.get $a0) (f64x2.mul (local.get $w0) (local.get $x0))))
+      (local.set $a1 (f64x2.add (local.get $a1) (f64x2.mul (local.get $w1) (local.get $x1))))
+      (local.set $pw (i32.add (local.get $pw) (i32.const 32)))
+      (local.set $px (i32.add (local.get $px) (i32.const 32)))
+      (local.set $k (i32.add (local.get $k) (i32.const 4)))
+      (br $l)))
+    (local.set $s (call $hsum (local.get $a0) (local.get $a1)))
+    (block $done (loop $l
+      (br_if $done (i32.ge_u (local.get $k) (global.get $L)))
+      (local.set $w (f64.load (local.get $pw)))
+      (local.set $w (f64.add (local.get $w) (f64.mul (local.get $g) (f64.load offset=8 (local.get $px)))))
+      (f64.store (local.get $pw) (local.get $w))
+      (local.set $s (f64.add (local.get $s) (f64.mul (local.get $w) (f64.load (local.get $px)))))
+      (local.set $pw (i32.add (local.get $pw) (i32.const 8)))
+      (local.set $px (i32.add (local.get $px) (i32.const 8)))
+      (local.set $k (i32.add (local.get $k) (i32.const 1)))
+      (br $l)))
+    (local.get $s))
+
   ;; Sum of line[pos + k]^2 (the exact recomputation of the running energy).
   (func $energy64 (param $o i32) (param $pos i32) (result f64)
     (local $k i32) (local $s f64) (local $v f64) (local $px i32)
@@ -309,7 +349,9 @@
                                   (f64.mul (f64.abs (global.get $pg)) (global.get $xb))))
           (if (f64.le (local.get $nb) (local.get $lim))
             (then
-              (local.set $yE (call $fused64Fast (global.get $oLE) (global.get $posE) (global.get $pg) (global.get $pc)))
+              (local.set $yE (if (result f64) (f64.eq (global.get $pc) (f64.const 0))
+                (then (call $fused64Plain (global.get $oLE) (global.get $posE) (global.get $pg)))
+                (else (call $fused64Fast (global.get $oLE) (global.get $posE) (global.get $pg) (global.get $pc)))))
               (global.set $wb (local.get $nb)))
             (else
               (local.set $yE (call $fused64 (global.get $oLE) (global.get $posE) (global.get $pg) (global.get $pc) (local.get $lim)))
