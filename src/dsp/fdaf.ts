@@ -139,13 +139,16 @@ class PartitionedFilter {
   /** Feeds samples; every N of them, `block` runs. Outputs lag one block. */
   feed(x: Float64Array, d: Float64Array, y: Float64Array, e: Float64Array, start: number, end: number, block: () => void): void {
     const N = this.N;
-    for (let n = start; n < end; n++) {
+    for (let n = start; n < end; ) {
       const f = this.fill;
-      y[n] = this.outY[f]!;
-      e[n] = this.outE[f]!;
-      this.inBuf[N + f] = x[n]!;
-      this.dBuf[f] = d[n]!;
-      if (++this.fill === N) {
+      const m = Math.min(end - n, N - f);
+      y.set(this.outY.subarray(f, f + m), n);
+      e.set(this.outE.subarray(f, f + m), n);
+      this.inBuf.set(x.subarray(n, n + m), N + f);
+      this.dBuf.set(d.subarray(n, n + m), f);
+      n += m;
+      this.fill += m;
+      if (this.fill === N) {
         this.fill = 0;
         this.head = (this.head + this.P - 1) % this.P;
         const p = this.partner;
@@ -224,6 +227,7 @@ export class FdafAdaptiveKernel implements AdaptiveKernel {
   /** @internal shared with the clean path's filter (see PartitionedFilter.partner). */
   readonly pf: PartitionedFilter;
   private readonly power: Float64Array;
+  private readonly muBin: Float64Array;
   private readonly E: Float64Array;
   private readonly G: Float64Array;
   private readonly g: Float64Array;
@@ -237,6 +241,7 @@ export class FdafAdaptiveKernel implements AdaptiveKernel {
     this.pf = new PartitionedFilter(spec.taps, opts.blockSize);
     this.normalized = opts.normalized ?? true;
     this.power = new Float64Array(this.pf.bins);
+    this.muBin = new Float64Array(this.pf.bins);
     this.E = new Float64Array(2 * this.pf.bins);
     this.G = new Float64Array(2 * this.pf.bins);
     this.g = new Float64Array(2 * opts.blockSize);
@@ -274,10 +279,12 @@ export class FdafAdaptiveKernel implements AdaptiveKernel {
     const keep = (1 - muMean * leak) ** N * (leakShift === null ? 1 : (1 - 2 ** -leakShift) ** N);
     const E = this.E;
     const G = this.G;
+    const muBin = this.muBin;
+    for (let b = 0; b < bins; b++) muBin[b] = this.normalized ? step / ((P * Math.max(this.power[b]!, floor)) / 2 + delta) : step;
     for (let p = 0; p < P; p++) {
       const X = history[(pf.head + p) % P]!;
       for (let b = 0; b < bins; b++) {
-        const mu = this.normalized ? step / ((P * Math.max(this.power[b]!, floor)) / 2 + delta) : step;
+        const mu = muBin[b]!;
         const xr = X[2 * b]!;
         const xi = X[2 * b + 1]!;
         const er = E[2 * b]!;

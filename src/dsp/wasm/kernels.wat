@@ -82,9 +82,9 @@
       (local.set $k (i32.add (local.get $k) (i32.const 1)))
       (br $l))))
 
-  ;; Float dot products, fused or not, sum in one fixed order: four partial sums over taps
-  ;; k = 4j + {0, 1} and 4j + {2, 3} (two f64x2 accumulators), combined as
-  ;; (a0[0] + a0[1]) + (a1[0] + a1[1]), then the last L mod 4 taps one by one.
+  ;; Float dot products sum lane-wise partial sums, combined by $hsum, then the leftover taps one
+  ;; by one. The order is fixed for each function, so results never depend on how samples are
+  ;; chunked; the fused pass and the plain dot may differ in the last bit.
 
   (global $clipped (mut i32) (i32.const 0))  ;; the last fused update stored a |w| > limit (or NaN)
   ;; Upper bounds on max |w| and on |x| in the delay lines. While (1 - c) wb + |g| xb stays within
@@ -108,21 +108,25 @@
     (f64.add (f64.add (f64x2.extract_lane 0 (local.get $a0)) (f64x2.extract_lane 1 (local.get $a0)))
              (f64.add (f64x2.extract_lane 0 (local.get $a1)) (f64x2.extract_lane 1 (local.get $a1)))))
 
-  ;; w . line[pos ..]
+  ;; w . line[pos ..] with four f64x2 accumulators (eight taps per step) so that the adds of
+  ;; consecutive steps do not wait on each other; combined (a0 + a2) and (a1 + a3), then as $hsum.
   (func $dot64 (param $o i32) (param $pos i32) (result f64)
-    (local $k i32) (local $a0 v128) (local $a1 v128) (local $s f64) (local $L4 i32) (local $px i32) (local $pw i32)
-    (local.set $L4 (i32.and (global.get $L) (i32.const -4)))
+    (local $k i32) (local $a0 v128) (local $a1 v128) (local $a2 v128) (local $a3 v128)
+    (local $s f64) (local $L8 i32) (local $px i32) (local $pw i32)
+    (local.set $L8 (i32.and (global.get $L) (i32.const -8)))
     (local.set $px (i32.add (local.get $o) (i32.shl (local.get $pos) (i32.const 3))))
     (local.set $pw (global.get $oW))
     (block $done (loop $l
-      (br_if $done (i32.ge_u (local.get $k) (local.get $L4)))
+      (br_if $done (i32.ge_u (local.get $k) (local.get $L8)))
       (local.set $a0 (f64x2.add (local.get $a0) (f64x2.mul (v128.load (local.get $pw)) (v128.load (local.get $px)))))
       (local.set $a1 (f64x2.add (local.get $a1) (f64x2.mul (v128.load offset=16 (local.get $pw)) (v128.load offset=16 (local.get $px)))))
-      (local.set $pw (i32.add (local.get $pw) (i32.const 32)))
-      (local.set $px (i32.add (local.get $px) (i32.const 32)))
-      (local.set $k (i32.add (local.get $k) (i32.const 4)))
+      (local.set $a2 (f64x2.add (local.get $a2) (f64x2.mul (v128.load offset=32 (local.get $pw)) (v128.load offset=32 (local.get $px)))))
+      (local.set $a3 (f64x2.add (local.get $a3) (f64x2.mul (v128.load offset=48 (local.get $pw)) (v128.load offset=48 (local.get $px)))))
+      (local.set $pw (i32.add (local.get $pw) (i32.const 64)))
+      (local.set $px (i32.add (local.get $px) (i32.const 64)))
+      (local.set $k (i32.add (local.get $k) (i32.const 8)))
       (br $l)))
-    (local.set $s (call $hsum (local.get $a0) (local.get $a1)))
+    (local.set $s (call $hsum (f64x2.add (local.get $a0) (local.get $a2)) (f64x2.add (local.get $a1) (local.get $a3))))
     (block $done (loop $l
       (br_if $done (i32.ge_u (local.get $k) (global.get $L)))
       (local.set $s (f64.add (local.get $s) (f64.mul (f64.load (local.get $pw)) (f64.load (local.get $px)))))
@@ -232,35 +236,36 @@
   ;; The same without leak (c = 0): w <- w + g x(n-1). (w - 0 w equals w except for the sign of a
   ;; zero weight, which no output can see.)
   (func $fused64Plain (param $o i32) (param $pos i32) (param $g f64) (result f64)
-    (local $k i32) (local $a0 v128) (local $a1 v128) 
-    (local $w0 v128) (local $w1 v128) (local $gv v128) (local $x0 v128) (local $x1 v128)
-    (local $s f64) (local $w f64) (local $L4 i32) (local $px i32) (local $pw i32)
-    (local.set $L4 (i32.and (global.get $L) (i32.const -4)))
+    (local $k i32) (local $a0 v128) (local $a1 v128) (local $a2 v128) (local $a3 v128)
+    (local $w0 v128) (local $w1 v128) (local $w2 v128) (local $w3 v128) (local $gv v128)
+    (local $s f64) (local $w f64) (local $L8 i32) (local $px i32) (local $pw i32)
+    (local.set $L8 (i32.and (global.get $L) (i32.const -8)))
     (local.set $px (i32.add (local.get $o) (i32.shl (local.get $pos) (i32.const 3))))
     (local.set $pw (global.get $oW))
     (local.set $gv (f64x2.splat (local.get $g)))
+    ;; eight taps per step: x(n) at offsets 0..63, x(n-1) at 8..71
     (block $done (loop $l
-      (br_if $done (i32.ge_u (local.get $k) (local.get $L4)))
-      ;; x(n) = line[pos + k .. + 4), x(n-1) = line[pos + 1 + k ..]: loaded at offsets 8 and 24
-      (local.set $x0 (v128.load (local.get $px)))
-      (local.set $x1 (v128.load offset=16 (local.get $px)))
-      (local.set $w0 (v128.load (local.get $pw)))
-      (local.set $w1 (v128.load offset=16 (local.get $pw)))
-      (local.set $w0 (f64x2.add (local.get $w0) (f64x2.mul (local.get $gv) (v128.load offset=8 (local.get $px)))))
-      (local.set $w1 (f64x2.add (local.get $w1) (f64x2.mul (local.get $gv) (v128.load offset=24 (local.get $px)))))
+      (br_if $done (i32.ge_u (local.get $k) (local.get $L8)))
+      (local.set $w0 (f64x2.add (v128.load (local.get $pw)) (f64x2.mul (local.get $gv) (v128.load offset=8 (local.get $px)))))
+      (local.set $w1 (f64x2.add (v128.load offset=16 (local.get $pw)) (f64x2.mul (local.get $gv) (v128.load offset=24 (local.get $px)))))
+      (local.set $w2 (f64x2.add (v128.load offset=32 (local.get $pw)) (f64x2.mul (local.get $gv) (v128.load offset=40 (local.get $px)))))
+      (local.set $w3 (f64x2.add (v128.load offset=48 (local.get $pw)) (f64x2.mul (local.get $gv) (v128.load offset=56 (local.get $px)))))
       (v128.store (local.get $pw) (local.get $w0))
       (v128.store offset=16 (local.get $pw) (local.get $w1))
-      (local.set $a0 (f64x2.add (local.get $a0) (f64x2.mul (local.get $w0) (local.get $x0))))
-      (local.set $a1 (f64x2.add (local.get $a1) (f64x2.mul (local.get $w1) (local.get $x1))))
-      (local.set $pw (i32.add (local.get $pw) (i32.const 32)))
-      (local.set $px (i32.add (local.get $px) (i32.const 32)))
-      (local.set $k (i32.add (local.get $k) (i32.const 4)))
+      (v128.store offset=32 (local.get $pw) (local.get $w2))
+      (v128.store offset=48 (local.get $pw) (local.get $w3))
+      (local.set $a0 (f64x2.add (local.get $a0) (f64x2.mul (local.get $w0) (v128.load (local.get $px)))))
+      (local.set $a1 (f64x2.add (local.get $a1) (f64x2.mul (local.get $w1) (v128.load offset=16 (local.get $px)))))
+      (local.set $a2 (f64x2.add (local.get $a2) (f64x2.mul (local.get $w2) (v128.load offset=32 (local.get $px)))))
+      (local.set $a3 (f64x2.add (local.get $a3) (f64x2.mul (local.get $w3) (v128.load offset=48 (local.get $px)))))
+      (local.set $pw (i32.add (local.get $pw) (i32.const 64)))
+      (local.set $px (i32.add (local.get $px) (i32.const 64)))
+      (local.set $k (i32.add (local.get $k) (i32.const 8)))
       (br $l)))
-    (local.set $s (call $hsum (local.get $a0) (local.get $a1)))
+    (local.set $s (call $hsum (f64x2.add (local.get $a0) (local.get $a2)) (f64x2.add (local.get $a1) (local.get $a3))))
     (block $done (loop $l
       (br_if $done (i32.ge_u (local.get $k) (global.get $L)))
-      (local.set $w (f64.load (local.get $pw)))
-      (local.set $w (f64.add (local.get $w) (f64.mul (local.get $g) (f64.load offset=8 (local.get $px)))))
+      (local.set $w (f64.add (f64.load (local.get $pw)) (f64.mul (local.get $g) (f64.load offset=8 (local.get $px)))))
       (f64.store (local.get $pw) (local.get $w))
       (local.set $s (f64.add (local.get $s) (f64.mul (local.get $w) (f64.load (local.get $px)))))
       (local.set $pw (i32.add (local.get $pw) (i32.const 8)))
