@@ -3,7 +3,8 @@ import { join } from 'node:path';
 import { EigenvalueDecomposition, Matrix } from 'ml-matrix';
 import { describe, expect, it } from 'vitest';
 import { WavWriter } from '../../src/io/wav/writer.js';
-import { cli, sox, tmpDir } from '../helpers/tools.js';
+import { spawnSync } from 'node:child_process';
+import { CLI, cli, sox, tmpDir } from '../helpers/tools.js';
 
 /** One line on stderr, no stack trace. */
 function expectOneLineError(r: { status: number; stderr: string }, pattern: RegExp): void {
@@ -189,6 +190,15 @@ describe('bad input: one clear line, a non-zero exit, no stack trace', () => {
     expectOneLineError(cli(['replay', '--speed', '2']), /^tapwarden: replay: Unknown option '--speed'; see 'tapwarden replay --help' \[TW_ERR_USAGE\]$/);
     expectOneLineError(cli(['rewind']), /^tapwarden: unknown command "rewind"; commands: .* \[TW_ERR_USAGE\]$/);
     expectOneLineError(cli(['replay', 'a.wav', 'b.wav']), /^tapwarden: replay: expected 0 to 1 argument\(s\), got 2/);
+  });
+
+  it('shows a progress bar on stderr when it is a terminal, and none otherwise', () => {
+    // script(1) (util-linux) runs the command on a pseudo-terminal.
+    const run = spawnSync('script', ['-qec', `${process.execPath} ${CLI} replay ${good} --out ${join(dir, 'tty')}`, '/dev/null'], { encoding: 'utf8' });
+    expect(run.status).toBe(0);
+    expect(run.stdout).toMatch(/replay \[█+\] 100% \| 16000\/16000 samples/);
+    const piped = cli(['replay', good, '--out', join(dir, 'piped')]);
+    expect(piped.stderr).toBe('');
   });
 
   it('every command has --help', () => {

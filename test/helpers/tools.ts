@@ -20,7 +20,7 @@ export function tool(cmd: string, args: string[]): string {
 
 export const sox = (...args: string[]): string => tool('sox', args);
 
-const CLI = new URL('../../dist/cli/main.js', import.meta.url).pathname;
+export const CLI = new URL('../../dist/cli/main.js', import.meta.url).pathname;
 
 export interface CliResult {
   status: number;

@@ -83,6 +83,48 @@ describe('the live path through naudiodon (PortAudio) on an ALSA file device', (
     }
   });
 
+  it('plays the clean output on a device, hard-limited to playbackPeakDb (the safety clamp)', async () => {
+    const dir = tmpDir();
+    const fifo = join(dir, 'capture.fifo');
+    const played = join(dir, 'played.raw');
+    execFileSync('mkfifo', [fifo]);
+    writeFileSync(
+      join(dir, '.asoundrc'),
+      `pcm.twbench {\n  type file\n  slave.pcm "null"\n  file "${join(dir, 'unused.raw')}"\n  infile "${fifo}"\n  format "raw"\n}\n` +
+        `pcm.twspeaker {\n  type file\n  slave.pcm "null"\n  file "${played}"\n  format "raw"\n}\n`,
+    );
+    // A loud measurement with nothing the reference can cancel: the clean output stays loud.
+    const raw = Buffer.alloc(FRAMES * 4);
+    for (let i = 0; i < FRAMES; i++) {
+      raw.writeInt16LE(Math.round(3000 * Math.sin(i * 0.31)), i * 4);
+      raw.writeInt16LE(Math.round(24000 * Math.sin(i * 0.017)), i * 4 + 2);
+    }
+    const fh: FileHandle = await open(fifo, 'r+');
+    const s = await serveWith(
+      dir,
+      `stream:\n  source: device\n  blockFrames: ${BLOCK}\n  device:\n    input: twbench\n    playback: twspeaker\n    playbackPeakDb: -20\n    sampleRate: ${RATE}\n    channels: 2\n`,
+      { HOME: dir },
+    );
+    try {
+      for (let at = 0; at < FRAMES; at += 2048) {
+        await fh.write(raw.subarray(at * 4, (at + 2048) * 4));
+        await sleep((1000 * 2048) / RATE);
+      }
+      await until(async () => (await s.metric('tapwarden_samples_processed_total')) >= FRAMES, 20_000, 'all samples');
+      await sleep(500);
+    } finally {
+      await fh.close();
+      await s.stop();
+    }
+    const out = readFileSync(played);
+    let peak = 0;
+    for (let i = 0; i + 1 < out.length; i += 2) peak = Math.max(peak, Math.abs(out.readInt16LE(i)));
+    const limit = 32767 * 10 ** (-20 / 20);
+    expect(out.length).toBeGreaterThan(FRAMES); // most of the clean output reached the device
+    expect(peak).toBeLessThanOrEqual(Math.ceil(limit));
+    expect(peak).toBeGreaterThan(0.95 * limit); // without the clamp it would reach 24000
+  });
+
   it('a device that is not there is reported and retried; the service keeps running', async () => {
     const dir = tmpDir();
     writeFileSync(join(dir, '.asoundrc'), '');
