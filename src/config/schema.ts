@@ -1,25 +1,10 @@
-import type { Rounding } from '../dsp/fixed.js';
-import type { Algorithm, Arithmetic } from '../dsp/types.js';
+import type { AdaptiveSpec } from '../dsp/types.js';
 
 /** The applied configuration. config/default.yaml holds every default. */
 export interface Config {
   readonly input: { readonly referenceChannel: number; readonly desiredChannel: number };
-  readonly filter: {
-    readonly algorithm: Algorithm;
-    readonly taps: number;
-    readonly step: number;
-    readonly delta: number;
-    readonly leak: number;
-    readonly leakShift: number | null;
-    readonly meanRemovalEvery: number | null;
-    readonly noiseInjectionDb: number | null;
-    readonly noiseSeed: number;
-    readonly arithmetic: Arithmetic;
-    readonly rounding: Rounding;
-    readonly weightLimit: number;
-    readonly blockSize: number;
-    readonly constrained: boolean;
-  };
+  /** The kernel's spec (every key set) and the engine's noise injection. */
+  readonly filter: Required<AdaptiveSpec> & { readonly noiseInjectionDb: number | null; readonly noiseSeed: number };
   readonly supervisor: {
     readonly windowSeconds: number;
     readonly minCancellationDb: number;

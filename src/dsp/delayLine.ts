@@ -23,6 +23,12 @@ export class DelayLine<T extends Float64Array | Float32Array> {
     return old;
   }
 
+  /** Takes over another line's samples and position (same length). */
+  copyFrom(other: DelayLine<T>): void {
+    this.buf.set(other.buf);
+    this.pos = other.pos;
+  }
+
   clear(): void {
     this.buf.fill(0);
     this.pos = 0;

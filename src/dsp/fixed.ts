@@ -120,13 +120,3 @@ export class WideAccumulator {
     return this.top * 2 ** (48 - s) + Math.floor(this.mid / 2 ** (s - 16));
   }
 }
-
-/** Splits an integer b (|b| <= 2^31) into its signed high half: b = high*2^16 + low. */
-export function splitHigh(b: number): number {
-  return Math.floor(b / TWO16);
-}
-
-/** The unsigned low 16 bits of b: b = high*2^16 + low. */
-export function splitLow(b: number): number {
-  return b - Math.floor(b / TWO16) * TWO16;
-}

@@ -268,9 +268,7 @@ export class FixedFirKernel implements FirKernel {
   }
 
   copyHistoryFrom(other: FirKernel): void {
-    const src = (other as FixedFirKernel).line;
-    this.line.buf.set(src.buf);
-    this.line.pos = src.pos;
+    this.line.copyFrom((other as FixedFirKernel).line);
   }
 
   reset(): void {

@@ -158,9 +158,7 @@ export class FloatFirKernel implements FirKernel {
   }
 
   copyHistoryFrom(other: FirKernel): void {
-    const src = (other as FloatFirKernel).line;
-    this.line.buf.set(src.buf);
-    this.line.pos = src.pos;
+    this.line.copyFrom((other as FloatFirKernel).line);
   }
 
   reset(): void {
