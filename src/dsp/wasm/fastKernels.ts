@@ -43,9 +43,9 @@ export function fastKernelsAvailable(): boolean {
   return wasmModule() !== null;
 }
 
-/** Whether the fast kernels implement this spec (float32 stays on the reference kernel). */
+/** Whether the fast kernels implement this spec: LMS and NLMS in float64, q15 and q31. */
 export function hasFastKernel(spec: AdaptiveSpec): boolean {
-  return spec.arithmetic !== 'float32' && fastKernelsAvailable();
+  return (spec.algorithm === 'lms' || spec.algorithm === 'nlms') && spec.arithmetic !== 'float32' && fastKernelsAvailable();
 }
 
 /** One module instance laid out for an L-tap filter: weights, two delay lines, chunk buffers. */
