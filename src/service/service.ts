@@ -226,6 +226,10 @@ export async function startService(config: Config, configFile: string): Promise<
   try {
     address = await app.listen({ host: config.http.host, port: config.http.port });
   } catch (err) {
+    // Release everything started so far, or its timers and threads keep the process alive.
+    feed.close();
+    playback?.stop();
+    await app.close().catch(() => {});
     await host.close();
     source.stop();
     throw new TapwardenError('TW_ERR_HTTP_LISTEN', { address: `${config.http.host}:${config.http.port}`, reason: oneLine(err) });

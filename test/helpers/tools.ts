@@ -29,12 +29,12 @@ export interface CliResult {
 }
 
 /** Runs the built CLI as a user would (npm test builds dist/ first). */
-export function cli(args: string[], opts: { cwd?: string; env?: Record<string, string> } = {}): CliResult {
+export function cli(args: string[], opts: { cwd?: string; env?: Record<string, string>; timeoutMs?: number } = {}): CliResult {
   const r = spawnSync(process.execPath, [CLI, ...args], {
     encoding: 'utf8',
     cwd: opts.cwd,
     env: { ...process.env, ...opts.env },
-    timeout: 300_000,
+    timeout: opts.timeoutMs ?? 300_000,
   });
   return { status: r.status ?? -1, stdout: r.stdout, stderr: r.stderr };
 }

@@ -188,6 +188,20 @@ describe('tapwarden serve without a control token', () => {
     }
   });
 
+  it('a port already in use: one line, exit 6, and the process ends', async () => {
+    const first = await serveWith(tmpDir(), '');
+    try {
+      const dir = tmpDir();
+      writeFileSync(`${dir}/same-port.yaml`, `http:\n  port: ${new URL(first.base).port}\n`);
+      const r = cli(['serve', '--config', `${dir}/same-port.yaml`], { timeoutMs: 20_000 });
+      expect(r.status).toBe(6);
+      expect(r.stderr.trim().split('\n')).toHaveLength(1);
+      expect(r.stderr).toMatch(/^tapwarden: cannot listen on 127\.0\.0\.1:\d+: listen EADDRINUSE.*\[TW_ERR_HTTP_LISTEN\]$/m);
+    } finally {
+      await first.stop();
+    }
+  });
+
   it('a bad config: one line, non-zero exit', () => {
     const dir = tmpDir();
     const f = `${dir}/bad.yaml`;
