@@ -27,10 +27,24 @@ const STEP_FRAC = 16;
 const ENERGY_FRAC = 30;
 const INT32_MAX = 2147483647;
 
-export function formatOf(arithmetic: string): QFormat {
-  if (arithmetic === 'q15') return Q15;
-  if (arithmetic === 'q31') return Q31;
-  throw new RangeError(`not a fixed-point arithmetic: ${arithmetic}`);
+/** The Q format of a fixed-point arithmetic, or null for a floating-point one. */
+export function formatOf(arithmetic: string): QFormat | null {
+  return arithmetic === 'q15' ? Q15 : arithmetic === 'q31' ? Q31 : null;
+}
+
+/** The spec's real-valued constants in the registers the operator sequence uses (DEVELOPERS.md). */
+export function fixedConstants(spec: AdaptiveSpec, fmt: QFormat): { muQ: number; deltaQ: number; gammaQ: number } {
+  return {
+    muQ: Math.round(spec.step * 2 ** STEP_FRAC),
+    deltaQ: Math.max(1, Math.round(spec.delta * 2 ** ENERGY_FRAC)),
+    gammaQ: Math.round(spec.leak * 2 ** fmt.fracBits),
+  };
+}
+
+function requireFormat(arithmetic: string): QFormat {
+  const fmt = formatOf(arithmetic);
+  if (fmt === null) throw new RangeError(`not a fixed-point arithmetic: ${arithmetic}`);
+  return fmt;
 }
 
 /** Exact FIR sum of weights and samples, rounded to the format; counts a clip in `sat`. */
@@ -103,16 +117,14 @@ export class FixedAdaptiveKernel implements AdaptiveKernel {
   private sinceMeanRemoval = 0;
 
   constructor(readonly spec: AdaptiveSpec) {
-    this.fmt = formatOf(spec.arithmetic);
+    this.fmt = requireFormat(spec.arithmetic);
     this.regs = new Registers(this.fmt, spec.rounding);
     this.scale = this.regs.scale;
     this.W = new Float64Array(spec.taps);
     this.evalLine = new DelayLine(spec.taps, (n) => new Float64Array(n));
     this.adaptLine = new DelayLine(spec.taps, (n) => new Float64Array(n));
     this.dot = new Dot(this.fmt, spec.rounding);
-    this.muQ = Math.round(spec.step * 2 ** STEP_FRAC);
-    this.deltaQ = Math.max(1, Math.round(spec.delta * 2 ** ENERGY_FRAC));
-    this.gammaQ = Math.round(spec.leak * 2 ** this.fmt.fracBits);
+    ({ muQ: this.muQ, deltaQ: this.deltaQ, gammaQ: this.gammaQ } = fixedConstants(spec, this.fmt));
   }
 
   /** One sample's share of the Q30 energy: x^2 rescaled from Q(2f) to Q30. */
@@ -231,7 +243,7 @@ export class FixedFirKernel implements FirKernel {
   private readonly dot: Dot;
 
   constructor(private readonly spec: AdaptiveSpec) {
-    this.fmt = formatOf(spec.arithmetic);
+    this.fmt = requireFormat(spec.arithmetic);
     this.regs = new Registers(this.fmt, spec.rounding);
     this.scale = this.regs.scale;
     this.W = new Float64Array(spec.taps);

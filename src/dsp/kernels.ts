@@ -1,5 +1,5 @@
 import { FdafAdaptiveKernel, FdafFirKernel } from './fdaf.js';
-import { FixedAdaptiveKernel, FixedFirKernel } from './fixedKernel.js';
+import { FixedAdaptiveKernel, FixedFirKernel, formatOf } from './fixedKernel.js';
 import { FloatAdaptiveKernel, FloatFirKernel } from './floatKernel.js';
 import type { AdaptiveKernel, AdaptiveSpec, FirKernel } from './types.js';
 import { WasmAdaptiveKernel, WasmFirKernel, hasFastKernel } from './wasm/fastKernels.js';
@@ -16,7 +16,7 @@ function useFast(spec: AdaptiveSpec, choice: KernelChoice | undefined): boolean 
   return wanted === 'fast' && hasFastKernel(spec);
 }
 
-const isFixed = (spec: AdaptiveSpec) => spec.arithmetic === 'q15' || spec.arithmetic === 'q31';
+const isFixed = (spec: AdaptiveSpec) => formatOf(spec.arithmetic) !== null;
 
 const fdafOptions = (spec: AdaptiveSpec) => ({ blockSize: spec.blockSize ?? 256, constrained: spec.constrained ?? true });
 

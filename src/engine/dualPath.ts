@@ -86,7 +86,6 @@ export class DualPathEngine {
   private readonly wsC: WeightStats = { mean: 0, norm: 0, maxAbs: 0, min: 0, max: 0 };
 
   private supervisorState: SupervisorState = INITIAL_STATE;
-  private handoffsFrozen = false;
   private sample = 0;
   private windowIndex = 0;
   private inWindow = 0;
@@ -147,13 +146,8 @@ export class DualPathEngine {
     this.adaptive.adapting = on;
   }
 
-  get handoffsHeld(): boolean {
-    return this.handoffsFrozen;
-  }
-
-  set handoffsHeld(on: boolean) {
-    this.handoffsFrozen = on;
-  }
+  /** While set, a window that passes every check stays pending instead of handing over. */
+  handoffsHeld = false;
 
   /**
    * Processes n samples of reference and desired; writes the clean path's and the adaptive
@@ -255,7 +249,7 @@ export class DualPathEngine {
         nonFiniteSamples: nonFinite,
       },
       this.settings.supervisor,
-      this.handoffsFrozen,
+      this.handoffsHeld,
     );
     this.supervisorState = state;
     if (decision.outcome === 'accepted') this.handoff('supervisor');

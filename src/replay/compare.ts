@@ -83,7 +83,7 @@ export function figuresOf(s: Summary): PolicyFigures {
     handoffsAccepted: s.handoffs.accepted,
     handoffsRejected: s.handoffs.rejected,
     saturations: s.saturations,
-    maxAbsWeightMean: Math.max(0, ...s.series.map((p) => Math.abs(p.adaptive.weightMean))),
+    maxAbsWeightMean: s.series.reduce((m, p) => Math.max(m, Math.abs(p.adaptive.weightMean)), 0),
     verdict,
   };
 }

@@ -41,7 +41,7 @@ function policyData(s: Summary) {
     DISPLAY_COLUMNS,
   );
   // A float arithmetic's guard (filter.weightLimit) far above the weights would flatten the plot.
-  const maxSeen = Math.max(0, ...s.series.map((p) => p.adaptive.maxAbsWeight));
+  const maxSeen = s.series.reduce((m, p) => Math.max(m, p.adaptive.maxAbsWeight), 0);
   return {
     name: s.policy,
     weightLimitShown: s.limits.weight <= 10 * maxSeen ? s.limits.weight : null,

@@ -100,7 +100,7 @@ export function buildApp(deps: HttpDeps): FastifyInstance {
       control.post(path, body ? { schema: { body } } : {}, async (req: FastifyRequest<{ Body: { frozen: boolean } }>) => {
         const reply = await deps.control(op(req.body));
         req.log.info({ control: path, body: req.body ?? null }, 'control request applied');
-        return { ok: true, ...reply, clean: undefined, adaptive: undefined };
+        return { ok: true, cleanVersion: reply.cleanVersion, adapting: reply.adapting, handoffsHeld: reply.handoffsHeld };
       });
     route('/api/control/handoff', emptyBody, () => ({ kind: 'handoff' }));
     route('/api/control/rollback', emptyBody, () => ({ kind: 'rollback' }));

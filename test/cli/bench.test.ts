@@ -4,15 +4,19 @@ import { cli } from '../helpers/tools.js';
 // The bench prints figures; no test asserts a timing (README "Sizing a rig" has the measured table).
 describe('tapwarden bench', () => {
   it('--json prints one object with the documented fields, and the C reference beside NLMS float64', () => {
-    const r = cli(['bench', '--taps', '64', '--seconds', '0.2', '--json']);
+    const seconds = 0.5;
+    const t0 = performance.now();
+    const r = cli(['bench', '--taps', '64', '--seconds', String(seconds), '--json']);
+    const wall = (performance.now() - t0) / 1000;
     expect(r.status).toBe(0);
     const o = JSON.parse(r.stdout);
     expect(o).toMatchObject({ algorithm: 'nlms', taps: 64, arithmetic: 'float64', rate: 48000 });
-    expect(o.samplesPerSecond).toBeGreaterThan(0);
-    expect(o.realtimeFactor).toBeCloseTo(o.samplesPerSecond / 48000, 1);
     // gcc is on every machine this runs on (node-gyp needs it): the C reference ran.
     expect(o.cSamplesPerSecond).toBeGreaterThan(0);
-    expect(o.ratioToC).toBeCloseTo(o.samplesPerSecond / o.cSamplesPerSecond, 2);
+    // Not a timing assertion: a check by this test's own clock that the figures are not
+    // inflated. Both programs processed `seconds` of audio inside the command's wall time, so
+    // their claimed times, seconds / realtimeFactor, cannot add up to more than that wall time.
+    expect(seconds / o.realtimeFactor + seconds / o.cRealtimeFactor).toBeLessThan(wall);
   });
 
   it('runs the other algorithms and arithmetics', () => {

@@ -1,7 +1,7 @@
 import { existsSync, readFileSync } from 'node:fs';
 import { PACKAGE_ROOT } from '../../paths.js';
 import { divRound, quantize, saturate, scaleRound, type QFormat } from '../fixed.js';
-import { formatOf } from '../fixedKernel.js';
+import { fixedConstants, formatOf } from '../fixedKernel.js';
 import { statsOf, type AdaptiveKernel, type AdaptiveSpec, type FirKernel, type WeightStats } from '../types.js';
 
 /**
@@ -106,12 +106,13 @@ export class WasmAdaptiveKernel implements AdaptiveKernel {
   private noiseOn = 0;
 
   constructor(readonly spec: AdaptiveSpec) {
-    this.fmt = spec.arithmetic === 'q15' || spec.arithmetic === 'q31' ? formatOf(spec.arithmetic) : null;
+    this.fmt = formatOf(spec.arithmetic);
     this.inst = new Instance(spec.taps, this.fmt, spec.rounding);
     this.scale = this.fmt ? 2 ** -this.fmt.fracBits : 1;
-    this.muQ = BigInt(Math.round(spec.step * 2 ** 16));
-    this.deltaQ = BigInt(Math.max(1, Math.round(spec.delta * 2 ** 30)));
-    this.gammaQ = this.fmt ? BigInt(Math.round(spec.leak * 2 ** this.fmt.fracBits)) : 0n;
+    const q = this.fmt ? fixedConstants(spec, this.fmt) : { muQ: 0, deltaQ: 0, gammaQ: 0 };
+    this.muQ = BigInt(q.muQ);
+    this.deltaQ = BigInt(q.deltaQ);
+    this.gammaQ = BigInt(q.gammaQ);
     this.shift = spec.leakShift ?? -1;
     this.shiftc = spec.leakShift === null ? 0 : 2 ** -spec.leakShift;
   }
@@ -211,7 +212,7 @@ export class WasmFirKernel implements FirKernel {
   private readonly scale: number;
 
   constructor(private readonly spec: AdaptiveSpec) {
-    this.fmt = spec.arithmetic === 'q15' || spec.arithmetic === 'q31' ? formatOf(spec.arithmetic) : null;
+    this.fmt = formatOf(spec.arithmetic);
     this.inst = new Instance(spec.taps, this.fmt, spec.rounding);
     this.scale = this.fmt ? 2 ** -this.fmt.fracBits : 1;
   }
