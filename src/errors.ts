@@ -18,7 +18,8 @@ export const ERRORS = {
   TW_ERR_CONFIG_SYNTAX: { message: 'config {file} is not valid YAML: {reason}', exitCode: 2 },
   TW_ERR_CONFIG_VALUE: { message: 'config {file}: {detail}', exitCode: 2, httpStatus: 400 },
   TW_ERR_CONFIG_STEP_BOUND: {
-    message: 'config {file}: filter.step = {step} is at or above the LMS stability bound {bound} = 2/(lambda_max + leak) for this reference (lambda_max = {lambdaMax}); choose a step below it',
+    message:
+      'config {file}: filter.step = {step} is not allowed for this reference; allowed: below the LMS mean-square bound 2/tr(R + leak I) = {bound} (mean convergence alone needs below 2/(lambda_max + leak) = {meanBound}); {figures}',
     exitCode: 2,
   },
   TW_ERR_INPUT_OPEN: { message: 'cannot open {file}: {reason}', exitCode: 3 },
@@ -33,6 +34,10 @@ export const ERRORS = {
     exitCode: 3,
   },
   TW_ERR_WAV_RATE: { message: '{file}: sample rate {rate} Hz is not allowed; allowed: 1 to 1000000 Hz', exitCode: 3 },
+  TW_ERR_REFERENCE_SILENT: {
+    message: '{file}: the reference (channel {channel}) is all zeros from {from} s to {to} s; nothing to analyze (check input.referenceChannel and the sensor)',
+    exitCode: 3,
+  },
   TW_ERR_OUTPUT_WRITE: { message: 'cannot write {file}: {reason}', exitCode: 4 },
   TW_ERR_AUDIO_UNAVAILABLE: { message: 'audio I/O is unavailable: {reason}', exitCode: 5 },
   TW_ERR_AUDIO_DEVICE: { message: 'audio device {device}: {reason}', exitCode: 5 },
@@ -45,6 +50,8 @@ export const ERRORS = {
   TW_ERR_AUTH_TOKEN: { message: 'a valid bearer token is required for control routes', exitCode: 1, httpStatus: 401 },
   TW_ERR_HTTP_BODY: { message: 'bad request: {detail}', exitCode: 1, httpStatus: 400 },
   TW_ERR_HTTP_NOT_FOUND: { message: 'no route {method} {url}', exitCode: 1, httpStatus: 404 },
+  TW_ERR_HTTP_BAD_REQUEST: { message: 'the request could not be parsed ({reason}); allowed: HTTP/1.1 with GET, HEAD or POST', exitCode: 1, httpStatus: 400 },
+  TW_ERR_ENGINE_FAILED: { message: 'the engine is not running: {reason}', exitCode: 7, httpStatus: 503 },
   TW_ERR_NOT_READY: { message: 'the stream is not running: {reason}', exitCode: 1, httpStatus: 503 },
   TW_ERR_GATE: { message: '{detail}', exitCode: 8 },
   TW_ERR_INTERNAL: { message: 'internal error: {detail}', exitCode: 70, httpStatus: 500 },
@@ -67,6 +74,36 @@ export class TapwardenError extends Error {
     this.exitCode = def.exitCode;
     this.httpStatus = def.httpStatus;
   }
+}
+
+/** A value as an error line quotes it: JSON, cut to about 80 characters. */
+export function quote(value: unknown, max = 80): string {
+  const text = JSON.stringify(value) ?? String(value);
+  return text.length <= max ? text : `${text.slice(0, max - 1)}…`;
+}
+
+/**
+ * Warnings tapwarden prints on purpose: a stable code and what it is about. Like errors, each is
+ * one line (`tapwarden: warning: ... [CODE]`) and documented in README.md.
+ */
+export const WARNINGS = {
+  TW_WARN_CONFIG_YAML: 'a YAML construct the config reader ignores or reads loosely',
+  TW_WARN_INPUT: 'something odd about the input recording (a damaged header, a short file)',
+  TW_WARN_OUTPUT: 'something odd about the written outputs (clipped or non-finite samples)',
+  TW_WARN_STEP: 'an LMS step above the Gaussian-input mean-square bound 2/(3 tr R)',
+} as const;
+
+export type WarningCode = keyof typeof WARNINGS;
+
+/** A warning with its code, as summaries carry them. */
+export interface Warning {
+  readonly code: WarningCode;
+  readonly message: string;
+}
+
+/** A warning as one line. */
+export function warningLine(code: WarningCode, message: string): string {
+  return `tapwarden: warning: ${oneLine(message)} [${code}]`;
 }
 
 /** A one-line description of any thrown value, for places that must not print a stack. */

@@ -1,7 +1,7 @@
 import { EigenvalueDecomposition, Matrix } from 'ml-matrix';
 import { lmsStepBound, NLMS_STEP_BOUND } from '../dsp/bounds.js';
 import { powerDb } from '../dsp/level.js';
-import { autocorrelation } from './correlation.js';
+import type { Correlations } from './correlation.js';
 
 /**
  * Why an input lets weights drift: the eigenvalues of the L x L autocorrelation matrix R of the
@@ -16,7 +16,10 @@ export interface Band {
 }
 
 export interface LeakCandidate {
+  /** gamma as added to R: (R + gamma I)^-1 p. */
   leak: number;
+  /** The filter.leak that gives it for the algorithm (LMS: gamma; NLMS, pbfdaf: gamma / (delta + tr R)). */
+  configLeak: number;
   /**
    * ||(R + gamma I)^-1 p - w0|| / ||w0||, with w0 the unregularized solution R^+ p over the
    * directions the input excites (above the threshold; along the others R^-1 p only fits noise).
@@ -30,6 +33,7 @@ export interface LeakCandidate {
 
 export interface ExcitationAnalysis {
   taps: number;
+  /** Samples R and p were estimated over. */
   samplesUsed: number;
   referencePowerDb: number;
   eigenvalues: number[];
@@ -44,7 +48,15 @@ export interface ExcitationAnalysis {
   meanDirectionDb: number;
   unexcitedBands: Band[];
   stepBounds: { lms: number; lmsTraceBound: number; nlms: number };
-  leak: { current: number; suggested: number | null; maxLossDb: number; candidates: LeakCandidate[] } | null;
+  leak: {
+    current: number;
+    algorithm: string;
+    /** The largest candidate gamma (re R) with loss <= maxLossDb, and the filter.leak for it. */
+    suggested: number | null;
+    suggestedConfig: number | null;
+    maxLossDb: number;
+    candidates: LeakCandidate[];
+  } | null;
 }
 
 /** Contiguous frequency ranges where the PSD is below its peak by more than `thresholdDb`. */
@@ -66,21 +78,25 @@ export function quietBands(frequencies: ArrayLike<number>, psd: ArrayLike<number
 }
 
 /**
- * Analyzes a reference x (and optionally the desired d, same length) for an L-tap filter. The
- * band list comes from the caller's PSD (Welch over the whole recording).
+ * Analyzes an L-tap filter's excitation from the reference's (and, with p, the desired's)
+ * correlations. `leakScale` turns a gamma added to R into the algorithm's filter.leak (1 for LMS,
+ * 1/(delta + tr R) for the normalized algorithms, whose leak multiplies the unnormalized step).
+ * The band list comes from the caller's PSD (Welch over the whole selection).
  */
 export function analyzeExcitation(opts: {
-  x: Float64Array;
-  d: Float64Array | null;
+  correlations: Correlations;
+  withDesired: boolean;
   taps: number;
   leak: number;
+  algorithm: string;
+  leakScale: number;
   thresholdDb: number;
   maxLossDb: number;
   frequencies: ArrayLike<number>;
   psd: ArrayLike<number>;
 }): ExcitationAnalysis {
-  const { x, d, taps: L, thresholdDb } = opts;
-  const r = autocorrelation(x, L);
+  const { taps: L, thresholdDb } = opts;
+  const { r, p, pd } = opts.correlations;
   const R = new Matrix(Array.from({ length: L }, (_, i) => Array.from({ length: L }, (_, j) => r[Math.abs(i - j)]!)));
   const evd = new EigenvalueDecomposition(R, { assumeSymmetric: true });
   const order = evd.realEigenvalues.map((v, i) => [v, i] as const).sort((a, b) => b[0] - a[0]);
@@ -93,7 +109,7 @@ export function analyzeExcitation(opts: {
   const trace = L * r[0]!;
   const analysis: ExcitationAnalysis = {
     taps: L,
-    samplesUsed: x.length,
+    samplesUsed: opts.correlations.n,
     referencePowerDb: powerDb(r[0]!),
     eigenvalues,
     lambdaMax,
@@ -103,44 +119,42 @@ export function analyzeExcitation(opts: {
     unexcitedDirections: eigenvalues.filter((v) => v < floor).length,
     meanDirectionDb: powerDb(ones / L / lambdaMax),
     unexcitedBands: quietBands(opts.frequencies, opts.psd, thresholdDb),
-    stepBounds: { lms: lmsStepBound(lambdaMax, opts.leak), lmsTraceBound: 2 / trace, nlms: NLMS_STEP_BOUND },
+    stepBounds: { lms: lmsStepBound(lambdaMax, opts.leak), lmsTraceBound: 2 / (trace + L * opts.leak), nlms: NLMS_STEP_BOUND },
     leak: null,
   };
-  if (d === null) return analysis;
+  if (!opts.withDesired) return analysis;
 
-  // Cross-correlation p[k] = E[d(n) x(n-k)] and the solutions in the eigenbasis.
-  const n = x.length;
-  const p = new Float64Array(L);
-  let pd = 0;
-  for (let i = 0; i < n; i++) pd += d[i]! * d[i]!;
-  pd /= n;
-  for (let k = 0; k < L; k++) {
-    let s = 0;
-    for (let i = k; i < n; i++) s += d[i]! * x[i - k]!;
-    p[k] = s / n;
-  }
+  // The solutions in the eigenbasis: q_i = u_i' p.
   const V = evd.eigenvectorMatrix;
   const q = order.map(([, idx]) => {
     let s = 0;
     for (let i = 0; i < L; i++) s += V.get(i, idx) * p[i]!;
-    return s; // u_i' p
+    return s;
   });
   const tol = floor;
   // With w = sum c_i u_i: Pe = Pd - 2 sum c_i q_i + sum c_i^2 lambda_i.
   const errorPower = (c: number[]) => pd - c.reduce((s, ci, i) => s + 2 * ci * q[i]! - ci * ci * eigenvalues[i]!, 0);
   const w0 = eigenvalues.map((l, i) => (l > tol ? q[i]! / l : 0));
-  const w0Norm = Math.hypot(...w0);
+  const w0Norm = Math.sqrt(w0.reduce((s, v) => s + v * v, 0));
   const c0 = powerDb(pd) - powerDb(errorPower(w0));
   const candidates: LeakCandidate[] = [];
   for (const factor of [1e-1, 3e-2, 1e-2, 3e-3, 1e-3, 3e-4, 1e-4, 3e-5, 1e-5, 1e-6]) {
     const gamma = lambdaMax * factor;
     const wg = eigenvalues.map((l, i) => q[i]! / (Math.max(l, 0) + gamma));
     // The bias is measured where w0 is defined: along the excited directions.
-    const bias = Math.hypot(...wg.map((v, i) => (eigenvalues[i]! > tol ? v - w0[i]! : 0))) / (w0Norm || 1);
+    let bias = 0;
+    for (let i = 0; i < L; i++) if (eigenvalues[i]! > tol) bias += (wg[i]! - w0[i]!) ** 2;
     const cg = powerDb(pd) - powerDb(errorPower(wg));
-    candidates.push({ leak: gamma, relativeBias: bias, cancellationDb: cg, lossDb: c0 - cg });
+    candidates.push({ leak: gamma, configLeak: gamma * opts.leakScale, relativeBias: Math.sqrt(bias) / (w0Norm || 1), cancellationDb: cg, lossDb: c0 - cg });
   }
-  const suggested = candidates.find((c) => c.lossDb <= opts.maxLossDb)?.leak ?? null;
-  analysis.leak = { current: opts.leak, suggested, maxLossDb: opts.maxLossDb, candidates };
+  const suggested = candidates.find((c) => c.lossDb <= opts.maxLossDb) ?? null;
+  analysis.leak = {
+    current: opts.leak,
+    algorithm: opts.algorithm,
+    suggested: suggested?.leak ?? null,
+    suggestedConfig: suggested?.configLeak ?? null,
+    maxLossDb: opts.maxLossDb,
+    candidates,
+  };
   return analysis;
 }

@@ -1,5 +1,10 @@
 import FFT from 'fft.js';
 
+/** A Welch segment for a rate: about 1/8 s, a power of two from 256 to 8192 samples. */
+export function spectrumSegment(rate: number): number {
+  return Math.min(8192, Math.max(256, 2 ** Math.ceil(Math.log2(rate / 8))));
+}
+
 /**
  * Welch's averaged periodogram, accumulated as samples stream past: Hann-windowed segments with
  * 50 % overlap, one-sided, in full-scale^2 per hertz, so that integrating it over frequency gives

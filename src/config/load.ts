@@ -1,9 +1,9 @@
 import { readFileSync } from 'node:fs';
 import { fileURLToPath } from 'node:url';
 import { Ajv, type ErrorObject } from 'ajv';
-import { parse as parseYaml, YAMLParseError } from 'yaml';
-import { NLMS_STEP_BOUND } from '../dsp/bounds.js';
-import { TapwardenError, oneLine } from '../errors.js';
+import { parseDocument } from 'yaml';
+import { NLMS_STEP_BOUND, PBFDAF_STEP_BOUND } from '../dsp/bounds.js';
+import { TapwardenError, oneLine, quote, warningLine } from '../errors.js';
 import { configSchema, type Config } from './schema.js';
 
 export const DEFAULT_CONFIG_PATH = fileURLToPath(new URL('../../config/default.yaml', import.meta.url));
@@ -23,19 +23,27 @@ function merge(base: Plain, over: Plain): Plain {
   return out;
 }
 
-function readYaml(file: string): unknown {
+/**
+ * Reads a YAML file. Syntax errors throw TW_ERR_CONFIG_SYNTAX; an empty file is reported as
+ * empty; YAML warnings (an unknown tag, say) become one coded line each through `onWarning`.
+ */
+function readYaml(file: string, onWarning: (line: string) => void): unknown {
   let text: string;
   try {
     text = readFileSync(file, 'utf8');
   } catch (err) {
     throw new TapwardenError('TW_ERR_CONFIG_READ', { file, reason: oneLine(err) });
   }
-  try {
-    return parseYaml(text) ?? {};
-  } catch (err) {
-    const reason = err instanceof YAMLParseError ? err.message.split('\n')[0]! : oneLine(err);
-    throw new TapwardenError('TW_ERR_CONFIG_SYNTAX', { file, reason });
+  const doc = parseDocument(text, { logLevel: 'silent', prettyErrors: false, uniqueKeys: true });
+  if (doc.errors.length > 0) {
+    throw new TapwardenError('TW_ERR_CONFIG_SYNTAX', { file, reason: oneLine(doc.errors[0]!.message) });
   }
+  for (const w of doc.warnings) onWarning(warningLine('TW_WARN_CONFIG_YAML', `config ${file}: ${w.message}`));
+  const value: unknown = doc.toJS({ maxAliasCount: 100 });
+  if (value === null || value === undefined) {
+    throw new TapwardenError('TW_ERR_CONFIG_VALUE', { file, detail: 'the file is empty; allowed: a mapping of sections (input, filter, supervisor, ...), or no --config at all' });
+  }
+  return value;
 }
 
 function keyOf(path: string): string {
@@ -83,7 +91,7 @@ function describe(e: ErrorObject, data: unknown): string {
   if (e.keyword === 'required') return `${keyOf(`${e.instancePath}/${p['missingProperty']}`)} is missing`;
   const value = valueAt(data, e.instancePath);
   const parent = valueAt(configSchema, e.schemaPath.replace(/^#/, '').replace(/\/[^/]+$/, '')) as Plain | undefined;
-  return `${keyOf(e.instancePath) || '(top level)'} = ${JSON.stringify(value)} is not allowed; allowed: ${allowedOf(e, parent)}`;
+  return `${keyOf(e.instancePath) || '(top level)'} = ${quote(value)} is not allowed; allowed: ${allowedOf(e, parent)}`;
 }
 
 function deepFreeze<T>(v: T): T {
@@ -110,13 +118,13 @@ function crossChecks(c: Config): string | null {
     ).find(([, bad]) => bad);
     if (unsupported) {
       const [key, , allowed] = unsupported;
-      return `filter.${key} = ${JSON.stringify(filter[key])} is not allowed with algorithm pbfdaf; allowed: ${allowed}`;
+      return `filter.${key} = ${quote(filter[key])} is not allowed with algorithm pbfdaf; allowed: ${allowed}`;
     }
     if (filter.taps % filter.blockSize !== 0) {
       return `filter.taps = ${filter.taps} is not allowed with algorithm pbfdaf; allowed: a multiple of filter.blockSize (${filter.blockSize})`;
     }
-    if (!(filter.step < 1)) {
-      return `filter.step = ${filter.step} is not allowed with algorithm pbfdaf; allowed: 0 < step < 1 (the normalized block update's stability bound)`;
+    if (!(filter.step < PBFDAF_STEP_BOUND)) {
+      return `filter.step = ${filter.step} is not allowed with algorithm pbfdaf; allowed: 0 < step < ${PBFDAF_STEP_BOUND} (the measured stability bound of both forms)`;
     }
   }
   if (filter.algorithm === 'nlms' && !(filter.step < NLMS_STEP_BOUND)) {
@@ -125,8 +133,8 @@ function crossChecks(c: Config): string | null {
   if ((filter.arithmetic === 'q15' || filter.arithmetic === 'q31') && Math.round(filter.step * 65536) === 0) {
     return `filter.step = ${filter.step} is not allowed in ${filter.arithmetic}; allowed: >= 2^-17 (the step is held in Q16)`;
   }
-  if (filter.algorithm === 'lms' && filter.step * filter.leak >= 1) {
-    return `filter.leak = ${filter.leak} is not allowed with step ${filter.step}; allowed: step * leak < 1`;
+  if (filter.step * filter.leak >= 1) {
+    return `filter.leak = ${filter.leak} is not allowed with step ${filter.step}; allowed: step * leak < 1 (the leak factor 1 - step * leak must stay in (0, 1])`;
   }
   if (supervisor.crossfadeSeconds > supervisor.windowSeconds) {
     return `supervisor.crossfadeSeconds = ${supervisor.crossfadeSeconds} is not allowed; allowed: <= supervisor.windowSeconds (${supervisor.windowSeconds})`;
@@ -146,15 +154,19 @@ export function validateConfig(data: unknown, file: string): Config {
 
 /**
  * The embedded default overlaid with each file in turn (a base config, then a policy), validated
- * and frozen. Errors name the last file.
+ * and frozen. Errors name the last file; YAML warnings go to `onWarning` (default: stderr).
  */
-export function loadConfig(file?: string | readonly string[], overrides: Plain = {}): Config {
+export function loadConfig(
+  file?: string | readonly string[],
+  overrides: Plain = {},
+  onWarning: (line: string) => void = (line) => process.stderr.write(line + '\n'),
+): Config {
   const files = file === undefined ? [] : typeof file === 'string' ? [file] : file;
-  let data = readYaml(DEFAULT_CONFIG_PATH) as Plain;
+  let data = readYaml(DEFAULT_CONFIG_PATH, onWarning) as Plain;
   for (const f of files) {
-    const user = readYaml(f);
+    const user = readYaml(f, onWarning);
     if (!isPlain(user)) {
-      throw new TapwardenError('TW_ERR_CONFIG_VALUE', { file: f, detail: 'the top level must be a mapping of sections (input, filter, supervisor, output, ...)' });
+      throw new TapwardenError('TW_ERR_CONFIG_VALUE', { file: f, detail: `the top level is ${quote(user)}; allowed: a mapping of sections (input, filter, supervisor, output, ...)` });
     }
     data = merge(data, user);
   }

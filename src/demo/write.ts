@@ -1,5 +1,7 @@
-import { copyFileSync, mkdirSync, writeFileSync } from 'node:fs';
+import { copyFileSync, existsSync, mkdirSync, mkdtempSync, renameSync, rmSync, writeFileSync } from 'node:fs';
+import { tmpdir } from 'node:os';
 import { join } from 'node:path';
+import { VERSION } from '../version.js';
 import { DEFAULT_CONFIG_PATH } from '../config/load.js';
 import { TapwardenError, oneLine } from '../errors.js';
 import { WavWriter } from '../io/wav/writer.js';
@@ -42,4 +44,25 @@ export function writeDemo(outDir: string): string[] {
     written.push(c.file);
   }
   return written.map((f) => join(outDir, f));
+}
+
+/**
+ * The demo recording in one cached copy per tapwarden version under the temporary directory
+ * (it is deterministic): written once, atomically (a rename of a finished directory), and
+ * shared by every serve that streams it.
+ */
+export function cachedDemo(): string {
+  const dir = join(tmpdir(), `tapwarden-demo-${VERSION}`);
+  const file = join(dir, DEMO_RECORDING);
+  if (existsSync(file)) return file;
+  const work = mkdtempSync(join(tmpdir(), 'tapwarden-demo-tmp-'));
+  try {
+    writeDemo(work);
+    renameSync(work, dir);
+  } catch (err) {
+    rmSync(work, { recursive: true, force: true });
+    // Another process finished first: its copy is the same.
+    if (!existsSync(file)) throw new TapwardenError('TW_ERR_OUTPUT_WRITE', { file: dir, reason: oneLine(err) });
+  }
+  return file;
 }

@@ -8,10 +8,16 @@ import { statsOf, type AdaptiveKernel, type AdaptiveSpec, type FirKernel, type W
  * Soo & Pang, IEEE Trans. ASSP 38(2), 1990 (multidelay); Shynk, "Frequency-domain and multirate
  * adaptive filtering", IEEE SP Magazine 9(1), 1992; Ferrara, IEEE Trans. ASSP 28(4), 1980.
  *
- * With the gradient constraint the update equals time-domain block LMS with block length N;
- * without it (Mansour & Gray, IEEE Trans. ASSP 30(5), 1982) each update saves 2P FFTs but the
- * partitions' impulse responses may wrap. The step is normalized per frequency bin by a smoothed
- * input power, so `step` behaves like the NLMS step. Outputs are one block late: sample n of the
+ * The update is block LMS with a per-bin step: the gradient conj(X) E of each partition is scaled
+ * in each frequency bin b by step / (D_b / 2 + delta), then (constrained form) projected back onto
+ * N-tap partitions. D_b is the larger of the bin's smoothed input power times P (floored at
+ * POWER_FLOOR of the mean over bins) and its instantaneous power summed over the P partitions, so
+ * no block's gain in any bin exceeds the step. With a uniform step (normalized: false, for tests)
+ * the constrained form is exactly time-domain block LMS; with the per-bin step it is block LMS
+ * preconditioned by a circulant (frequency-domain) step, which is not. Without the constraint
+ * (Mansour & Gray, IEEE Trans. ASSP 30(5), 1982) each update saves 2P FFTs but a partition's
+ * response is 2N taps that wrap circularly. The stability bound, step < 1 for both forms, is
+ * measured (test/dsp/fdaf.test.ts, README "pbfdaf"). Outputs are one block late: sample n of the
  * output streams belongs to input sample n - N (latency N samples).
  */
 
@@ -26,10 +32,14 @@ export interface FdafOptions {
 /** Smoothing of the per-bin input power, per block. */
 const POWER_SMOOTHING = 0.9;
 /**
- * A bin's power is floored at this fraction of the mean over bins, so that bins the input does
- * not excite (a band-limited reference) do not get an unbounded step (common practice).
+ * A bin's smoothed power is floored at this fraction of the mean over bins, so that bins the
+ * input does not excite (a band-limited or tonal reference) do not get a step the gradient
+ * constraint would couple back into the loud bins. 0.01 lets a two-tone reference diverge at
+ * step 0.1 with P = 2; 0.3 is the smallest of those measured that kept every case finite.
  */
-const POWER_FLOOR = 0.01;
+const POWER_FLOOR = 0.3;
+/** The instantaneous per-bin power sum is recomputed exactly every this many blocks. */
+const RESUM_BLOCKS = 256;
 
 /**
  * Real 2N-point transforms over bins 0..N (interleaved re, im), on fft.js. The inverse runs as
@@ -95,6 +105,11 @@ export class RealFft {
   }
 }
 
+/** Called once per completed block of N samples. */
+interface BlockHandler {
+  onBlock(): void;
+}
+
 /** The block machinery both paths share: input buffering, spectra history, one block of delay. */
 class PartitionedFilter {
   readonly N: number;
@@ -111,14 +126,16 @@ class PartitionedFilter {
    * transformed this block, its spectrum is copied instead of computing the same FFT again.
    */
   partner: PartitionedFilter | null = null;
+  /** Partition spectra (interleaved re, im over bins 0..N). */
   readonly weights: Float64Array[];
   readonly inBuf: Float64Array;
   readonly dBuf: Float64Array;
   readonly outY: Float64Array;
   readonly outE: Float64Array;
   fill = 0;
-  protected readonly Y: Float64Array;
-  protected readonly time: Float64Array;
+  private readonly Y: Float64Array;
+  /** Scratch for one 2N-sample time signal. */
+  readonly time: Float64Array;
 
   constructor(taps: number, blockSize: number) {
     if (taps % blockSize !== 0) throw new RangeError(`taps ${taps} is not a multiple of the block size ${blockSize}`);
@@ -136,8 +153,8 @@ class PartitionedFilter {
     this.time = new Float64Array(2 * blockSize);
   }
 
-  /** Feeds samples; every N of them, `block` runs. Outputs lag one block. */
-  feed(x: Float64Array, d: Float64Array, y: Float64Array, e: Float64Array, start: number, end: number, block: () => void): void {
+  /** Feeds samples; every N of them, `handler.onBlock` runs. Outputs lag one block. */
+  feed(x: Float64Array, d: Float64Array, y: Float64Array, e: Float64Array, start: number, end: number, handler: BlockHandler): void {
     const N = this.N;
     for (let n = start; n < end; ) {
       const f = this.fill;
@@ -155,7 +172,7 @@ class PartitionedFilter {
         if (p !== null && p.blockCount === this.blockCount + 1) this.history[this.head]!.set(p.history[p.head]!);
         else this.rfft.forward(this.inBuf, this.history[this.head]!);
         this.blockCount++;
-        block();
+        handler.onBlock();
         this.inBuf.copyWithin(0, N);
       }
     }
@@ -184,9 +201,12 @@ class PartitionedFilter {
     }
   }
 
-  /** Time-domain taps: the first N samples of each partition's impulse response. */
-  timeWeights(): Float64Array {
-    const w = new Float64Array(this.P * this.N);
+  /**
+   * Time-domain taps: the first N samples of each partition's response. For the unconstrained
+   * form this leaves out each partition's wrapped second half (see copyWeightsFrom for what a
+   * handoff copies).
+   */
+  timeWeights(w: Float64Array = new Float64Array(this.P * this.N)): Float64Array {
     for (let p = 0; p < this.P; p++) {
       this.rfft.inverse(this.weights[p]!, this.time);
       w.set(this.time.subarray(0, this.N), p * this.N);
@@ -202,6 +222,11 @@ class PartitionedFilter {
     }
   }
 
+  /** The partition spectra, exactly: what a handoff hands over. */
+  copyWeightsFrom(o: PartitionedFilter): void {
+    for (let p = 0; p < this.P; p++) this.weights[p]!.set(o.weights[p]!);
+  }
+
   copyStateFrom(o: PartitionedFilter): void {
     for (let p = 0; p < this.P; p++) this.history[p]!.set(o.history[p]!);
     this.head = o.head;
@@ -214,24 +239,39 @@ class PartitionedFilter {
   }
 
   clear(): void {
-    for (const a of [...this.history, ...this.weights, this.inBuf, this.dBuf, this.outY, this.outE]) a.fill(0);
+    for (let p = 0; p < this.P; p++) {
+      this.history[p]!.fill(0);
+      this.weights[p]!.fill(0);
+    }
+    this.inBuf.fill(0);
+    this.dBuf.fill(0);
+    this.outY.fill(0);
+    this.outE.fill(0);
     this.head = 0;
     this.fill = 0;
     this.blockCount = 0;
   }
 }
 
-export class FdafAdaptiveKernel implements AdaptiveKernel {
+export class FdafAdaptiveKernel implements AdaptiveKernel, BlockHandler {
   adapting = true;
-  readonly saturations = 0;
+  weightSaturations = 0;
+  readonly signalSaturations = 0;
   /** @internal shared with the clean path's filter (see PartitionedFilter.partner). */
   readonly pf: PartitionedFilter;
+  /** Smoothed power of the newest block's spectrum, per bin. */
   private readonly power: Float64Array;
+  /** Instantaneous power per bin summed over the P partitions (a running sum). */
+  private readonly powerSum: Float64Array;
+  /** The oldest spectrum in the history, saved before the next block overwrites it. */
+  private readonly lastLeaving: Float64Array;
   private readonly muBin: Float64Array;
   private readonly E: Float64Array;
   private readonly G: Float64Array;
   private readonly g: Float64Array;
   private readonly normalized: boolean;
+  /** The leak over one block of N samples: (1 - step leak)^N (1 - 2^-k)^N. */
+  private readonly keep: number;
   private blocks = 0;
 
   constructor(
@@ -241,46 +281,47 @@ export class FdafAdaptiveKernel implements AdaptiveKernel {
     this.pf = new PartitionedFilter(spec.taps, opts.blockSize);
     this.normalized = opts.normalized ?? true;
     this.power = new Float64Array(this.pf.bins);
+    this.powerSum = new Float64Array(this.pf.bins);
+    this.lastLeaving = new Float64Array(2 * this.pf.bins);
     this.muBin = new Float64Array(this.pf.bins);
     this.E = new Float64Array(2 * this.pf.bins);
     this.G = new Float64Array(2 * this.pf.bins);
     this.g = new Float64Array(2 * opts.blockSize);
+    const N = opts.blockSize;
+    // The leak uses the unnormalized step, as in the time-domain kernels.
+    this.keep = (1 - spec.step * spec.leak) ** N * (spec.leakShift === null ? 1 : (1 - 2 ** -spec.leakShift) ** N);
   }
 
   run(x: Float64Array, d: Float64Array, _noise: Float64Array | null, y: Float64Array, e: Float64Array, start: number, end: number): void {
-    this.pf.feed(x, d, y, e, start, end, this.block);
+    this.pf.feed(x, d, y, e, start, end, this);
   }
 
-  private readonly block = (): void => {
+  /** One block: filter, then (when adapting) update every partition and enforce the weight limit. */
+  onBlock(): void {
     const pf = this.pf;
+    const { N, P, bins, history, weights, rfft } = pf;
+    this.trackPower(history[pf.head]!);
     pf.filterBlock();
     if (!this.adapting) return;
-    const { N, P, bins, history, weights, rfft } = pf;
-    const { step, delta, leak, leakShift } = this.spec;
-    const X0 = history[pf.head]!;
-    // Per-bin input power, smoothed over blocks.
-    const a = this.blocks++ === 0 ? 0 : POWER_SMOOTHING;
-    let meanPower = 0;
-    for (let b = 0; b < bins; b++) {
-      const p = X0[2 * b]! ** 2 + X0[2 * b + 1]! ** 2;
-      this.power[b] = a * this.power[b]! + (1 - a) * p;
-      meanPower += this.power[b]!;
-    }
-    meanPower /= bins;
-    const floor = POWER_FLOOR * meanPower;
+    const { step, delta } = this.spec;
+    const muBin = this.muBin;
+    if (this.normalized) {
+      let meanPower = 0;
+      for (let b = 0; b < bins; b++) meanPower += this.power[b]!;
+      const floor = (POWER_FLOOR * meanPower) / bins;
+      for (let b = 0; b < bins; b++) {
+        const D = Math.max(P * Math.max(this.power[b]!, floor), this.powerSum[b]!);
+        muBin[b] = step / (D / 2 + delta);
+      }
+    } else muBin.fill(step);
     // E = FFT([0_N, e_block])
     const g = this.g;
     g.fill(0, 0, N);
     g.set(pf.outE, N);
     rfft.forward(g, this.E);
-    // The leak over one block of N samples: (1 - mu_n gamma)^N (1 - 2^-k)^N, with the step the
-    // normalization gives on average.
-    const muMean = this.normalized ? step / ((P * meanPower) / 2 + delta) : step;
-    const keep = (1 - muMean * leak) ** N * (leakShift === null ? 1 : (1 - 2 ** -leakShift) ** N);
     const E = this.E;
     const G = this.G;
-    const muBin = this.muBin;
-    for (let b = 0; b < bins; b++) muBin[b] = this.normalized ? step / ((P * Math.max(this.power[b]!, floor)) / 2 + delta) : step;
+    const keep = this.keep;
     for (let p = 0; p < P; p++) {
       const X = history[(pf.head + p) % P]!;
       for (let b = 0; b < bins; b++) {
@@ -301,19 +342,96 @@ export class FdafAdaptiveKernel implements AdaptiveKernel {
       const W = weights[p]!;
       for (let i = 0; i < 2 * bins; i++) W[i] = keep * W[i]! + G[i]!;
     }
-  };
+    this.limitWeights();
+  }
+
+  /**
+   * Smooths the newest block's per-bin power and keeps the P-partition instantaneous sum: the
+   * newest spectrum enters it and the one it overwrote in the history (saved a block ago in
+   * lastLeaving) leaves it; recomputed exactly every RESUM_BLOCKS blocks.
+   */
+  private trackPower(X0: Float64Array): void {
+    const { P, bins, history, head } = this.pf;
+    const a = this.blocks === 0 ? 0 : POWER_SMOOTHING;
+    const resum = this.blocks % RESUM_BLOCKS === 0;
+    this.blocks++;
+    for (let b = 0; b < bins; b++) {
+      const p = X0[2 * b]! ** 2 + X0[2 * b + 1]! ** 2;
+      this.power[b] = a * this.power[b]! + (1 - a) * p;
+    }
+    if (resum || P === 1) {
+      this.powerSum.fill(0);
+      for (let q = 0; q < P; q++) {
+        const X = history[(head + q) % P]!;
+        for (let b = 0; b < bins; b++) this.powerSum[b]! += X[2 * b]! ** 2 + X[2 * b + 1]! ** 2;
+      }
+      this.lastLeaving.set(history[(head + P - 1) % P]!);
+      return;
+    }
+    const old = this.lastLeaving;
+    for (let b = 0; b < bins; b++) {
+      const add = X0[2 * b]! ** 2 + X0[2 * b + 1]! ** 2;
+      const drop = old[2 * b]! ** 2 + old[2 * b + 1]! ** 2;
+      this.powerSum[b] = Math.max(0, this.powerSum[b]! + add - drop);
+    }
+    old.set(history[(head + P - 1) % P]!);
+  }
+
+  /**
+   * Clips time-domain weights beyond filter.weightLimit, counting each clipped tap. By Parseval,
+   * max |w| <= ||w|| = sqrt(sum |W_k|^2 / 2N), so while the partitions' total energy is within
+   * the limit (always, for a filter that has not diverged) no transform is needed.
+   */
+  private limitWeights(): void {
+    const pf = this.pf;
+    const { N, P, bins, weights, rfft, time } = pf;
+    const lim = this.spec.weightLimit;
+    let energy = 0;
+    for (let p = 0; p < P; p++) {
+      const W = weights[p]!;
+      let e = W[0]! ** 2 + W[1]! ** 2 + W[2 * N]! ** 2 + W[2 * N + 1]! ** 2;
+      for (let b = 1; b < bins - 1; b++) e += 2 * (W[2 * b]! ** 2 + W[2 * b + 1]! ** 2);
+      energy += e;
+    }
+    if (energy / (2 * N) <= lim * lim) return;
+    for (let p = 0; p < P; p++) {
+      rfft.inverse(weights[p]!, time);
+      let clipped = 0;
+      for (let i = 0; i < 2 * N; i++) {
+        const v = time[i]!;
+        if (!(v <= lim && v >= -lim)) {
+          time[i] = v > 0 ? lim : v < 0 ? -lim : 0;
+          clipped++;
+        }
+      }
+      if (clipped > 0) {
+        this.weightSaturations += clipped;
+        rfft.forward(time, weights[p]!);
+      }
+    }
+  }
 
   getWeights(): Float64Array {
     return this.pf.timeWeights();
+  }
+
+  readWeights(out: Float64Array): void {
+    this.pf.timeWeights(out);
   }
 
   setWeights(w: ArrayLike<number>): void {
     this.pf.setTimeWeights(w);
   }
 
+  copyTo(fir: FirKernel): void {
+    (fir as FdafFirKernel).pf.copyWeightsFrom(this.pf);
+  }
+
   reset(): void {
     this.pf.clear();
     this.power.fill(0);
+    this.powerSum.fill(0);
+    this.lastLeaving.fill(0);
     this.blocks = 0;
   }
 
@@ -323,9 +441,10 @@ export class FdafAdaptiveKernel implements AdaptiveKernel {
 }
 
 /** The clean path for PBFDAF: the same partitioned convolution with fixed weights. */
-export class FdafFirKernel implements FirKernel {
-  readonly saturations = 0;
-  private readonly pf: PartitionedFilter;
+export class FdafFirKernel implements FirKernel, BlockHandler {
+  readonly signalSaturations = 0;
+  /** @internal */
+  readonly pf: PartitionedFilter;
 
   /** `partner`: the adaptive path fed the same reference, whose input spectra this one reuses. */
   constructor(spec: AdaptiveSpec, opts: FdafOptions, partner?: FdafAdaptiveKernel) {
@@ -338,7 +457,11 @@ export class FdafFirKernel implements FirKernel {
   }
 
   run(x: Float64Array, d: Float64Array, y: Float64Array, e: Float64Array, start: number, end: number): void {
-    this.pf.feed(x, d, y, e, start, end, () => this.pf.filterBlock());
+    this.pf.feed(x, d, y, e, start, end, this);
+  }
+
+  onBlock(): void {
+    this.pf.filterBlock();
   }
 
   getWeights(): Float64Array {
@@ -347,6 +470,10 @@ export class FdafFirKernel implements FirKernel {
 
   setWeights(w: ArrayLike<number>): void {
     this.pf.setTimeWeights(w);
+  }
+
+  copyWeightsFrom(other: FirKernel): void {
+    this.pf.copyWeightsFrom((other as FdafFirKernel).pf);
   }
 
   copyHistoryFrom(other: FirKernel): void {

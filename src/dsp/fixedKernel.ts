@@ -32,12 +32,20 @@ export function formatOf(arithmetic: string): QFormat | null {
   return arithmetic === 'q15' ? Q15 : arithmetic === 'q31' ? Q31 : null;
 }
 
-/** The spec's real-valued constants in the registers the operator sequence uses (DEVELOPERS.md). */
-export function fixedConstants(spec: AdaptiveSpec, fmt: QFormat): { muQ: number; deltaQ: number; gammaQ: number } {
+/**
+ * The spec's real-valued constants in the registers the operator sequence uses (DEVELOPERS.md):
+ * the Q16 step, the Q30 regularization, the Qf leak, and the per-sample leak factor
+ * lfQ = rnd_16(muQ gammaQ) (Qf), formed once from the unnormalized step.
+ */
+export function fixedConstants(spec: AdaptiveSpec, fmt: QFormat): { muQ: number; deltaQ: number; gammaQ: number; lfQ: number } {
+  const muQ = Math.round(spec.step * 2 ** STEP_FRAC);
+  const gammaQ = Math.round(spec.leak * 2 ** fmt.fracBits);
   return {
-    muQ: Math.round(spec.step * 2 ** STEP_FRAC),
+    muQ,
     deltaQ: Math.max(1, Math.round(spec.delta * 2 ** ENERGY_FRAC)),
-    gammaQ: Math.round(spec.leak * 2 ** fmt.fracBits),
+    gammaQ,
+    // step * leak < 1 (config), so this never needs saturating.
+    lfQ: gammaQ === 0 ? 0 : saturate(mulShift(muQ, gammaQ, STEP_FRAC, spec.rounding), fmt),
   };
 }
 
@@ -77,9 +85,13 @@ class Dot {
   }
 }
 
-/** Stores into a format's registers: saturating, counting every clip. */
+/**
+ * Stores into a format's registers: saturating, counting every clip, apart for weights (the drift
+ * symptom) and for signals (inputs, outputs, error, gain: a level problem).
+ */
 class Registers {
-  saturations = 0;
+  signalSaturations = 0;
+  weightSaturations = 0;
   readonly scale: number;
 
   constructor(
@@ -89,13 +101,21 @@ class Registers {
     this.scale = 2 ** -fmt.fracBits;
   }
 
+  /** A signal store. */
   clip(v: number): number {
     const s = saturate(v, this.fmt);
-    if (s !== v) this.saturations++;
+    if (s !== v) this.signalSaturations++;
     return s;
   }
 
-  /** A real value quantized to the format. */
+  /** A weight store. */
+  clipWeight(v: number): number {
+    const s = saturate(v, this.fmt);
+    if (s !== v) this.weightSaturations++;
+    return s;
+  }
+
+  /** A real value quantized to the format (a signal store). */
   q(v: number): number {
     return this.clip(scaleRound(v, this.fmt.fracBits, this.rounding));
   }
@@ -112,7 +132,7 @@ export class FixedAdaptiveKernel implements AdaptiveKernel {
   private readonly dot: Dot;
   private readonly muQ: number;
   private readonly deltaQ: number;
-  private readonly gammaQ: number;
+  private readonly lfQ: number;
   private energy = 0;
   private sinceMeanRemoval = 0;
 
@@ -124,7 +144,7 @@ export class FixedAdaptiveKernel implements AdaptiveKernel {
     this.evalLine = new DelayLine(spec.taps, (n) => new Float64Array(n));
     this.adaptLine = new DelayLine(spec.taps, (n) => new Float64Array(n));
     this.dot = new Dot(this.fmt, spec.rounding);
-    ({ muQ: this.muQ, deltaQ: this.deltaQ, gammaQ: this.gammaQ } = fixedConstants(spec, this.fmt));
+    ({ muQ: this.muQ, deltaQ: this.deltaQ, lfQ: this.lfQ } = fixedConstants(spec, this.fmt));
   }
 
   /** One sample's share of the Q30 energy: x^2 rescaled from Q(2f) to Q30. */
@@ -133,8 +153,12 @@ export class FixedAdaptiveKernel implements AdaptiveKernel {
     return shift === 0 ? v * v : mulShift(v, v, shift, this.spec.rounding);
   }
 
-  get saturations(): number {
-    return this.regs.saturations;
+  get weightSaturations(): number {
+    return this.regs.weightSaturations;
+  }
+
+  get signalSaturations(): number {
+    return this.regs.signalSaturations;
   }
 
   private clip(v: number): number {
@@ -171,7 +195,7 @@ export class FixedAdaptiveKernel implements AdaptiveKernel {
       this.energy += this.energyTerm(line.buf[line.pos]!) - this.energyTerm(old);
 
       const yEval = dot.compute(W, this.evalLine.buf, this.evalLine.pos, L);
-      if (dot.clipped) this.regs.saturations++;
+      if (dot.clipped) this.regs.signalSaturations++;
       const eEval = this.clip(dq - yEval);
       y[n] = yEval * this.scale;
       e[n] = eEval * this.scale;
@@ -180,7 +204,7 @@ export class FixedAdaptiveKernel implements AdaptiveKernel {
       let err = eEval;
       if (line !== this.evalLine) {
         const yA = dot.compute(W, line.buf, line.pos, L);
-        if (dot.clipped) this.regs.saturations++;
+        if (dot.clipped) this.regs.signalSaturations++;
         err = this.clip(dq - yA);
       }
       const s =
@@ -188,7 +212,7 @@ export class FixedAdaptiveKernel implements AdaptiveKernel {
           ? Math.min(INT32_MAX, divRound(this.muQ * 2 ** ENERGY_FRAC, this.deltaQ + this.energy, rounding))
           : this.muQ;
       const g = this.clip(mulShift(s, err, STEP_FRAC, rounding));
-      const lf = this.gammaQ === 0 ? 0 : this.clip(mulShift(s, this.gammaQ, STEP_FRAC, rounding));
+      const lf = this.lfQ;
       const buf = line.buf;
       const p = line.pos;
       for (let k = 0; k < L; k++) {
@@ -196,14 +220,14 @@ export class FixedAdaptiveKernel implements AdaptiveKernel {
         let v = wk + mulShift(g, buf[p + k]!, f, rounding);
         if (lf !== 0) v -= mulShift(lf, wk, f, rounding);
         if (leakShift !== null) v -= Math.floor(wk / 2 ** leakShift);
-        W[k] = this.clip(v);
+        W[k] = this.regs.clipWeight(v);
       }
       if (meanRemovalEvery !== null && ++this.sinceMeanRemoval >= meanRemovalEvery) {
         this.sinceMeanRemoval = 0;
         let sum = 0;
         for (let k = 0; k < L; k++) sum += W[k]!;
         const m = divRound(sum, L, rounding);
-        for (let k = 0; k < L; k++) W[k] = this.clip(W[k]! - m);
+        for (let k = 0; k < L; k++) W[k] = this.regs.clipWeight(W[k]! - m);
       }
     }
   }
@@ -212,13 +236,21 @@ export class FixedAdaptiveKernel implements AdaptiveKernel {
     return this.W.map((v) => v * this.scale);
   }
 
+  readWeights(out: Float64Array): void {
+    for (let k = 0; k < this.W.length; k++) out[k] = this.W[k]! * this.scale;
+  }
+
   setWeights(w: ArrayLike<number>): void {
-    for (let k = 0; k < this.W.length; k++) this.W[k] = this.q(w[k] ?? 0);
+    for (let k = 0; k < this.W.length; k++) this.W[k] = this.regs.clipWeight(scaleRound(w[k] ?? 0, this.fmt.fracBits, this.spec.rounding));
   }
 
   /** The raw integer weights (Qf). */
   rawWeights(): Float64Array {
     return Float64Array.from(this.W);
+  }
+
+  copyTo(fir: FirKernel): void {
+    fir.setWeights(this.getWeights());
   }
 
   reset(): void {
@@ -255,8 +287,8 @@ export class FixedFirKernel implements FirKernel {
     return this.W.length;
   }
 
-  get saturations(): number {
-    return this.regs.saturations;
+  get signalSaturations(): number {
+    return this.regs.signalSaturations;
   }
 
   run(x: Float64Array, d: Float64Array, y: Float64Array, e: Float64Array, start: number, end: number): void {
@@ -265,7 +297,7 @@ export class FixedFirKernel implements FirKernel {
       const regs = this.regs;
       this.line.push(regs.q(x[n]!));
       const v = this.dot.compute(this.W, this.line.buf, this.line.pos, L);
-      if (this.dot.clipped) regs.saturations++;
+      if (this.dot.clipped) regs.signalSaturations++;
       y[n] = v * this.scale;
       e[n] = regs.clip(regs.q(d[n]!) - v) * this.scale;
     }
@@ -277,6 +309,10 @@ export class FixedFirKernel implements FirKernel {
 
   setWeights(w: ArrayLike<number>): void {
     for (let k = 0; k < this.W.length; k++) this.W[k] = quantize(w[k] ?? 0, this.fmt, this.spec.rounding);
+  }
+
+  copyWeightsFrom(other: FirKernel): void {
+    this.setWeights(other.getWeights());
   }
 
   copyHistoryFrom(other: FirKernel): void {

@@ -15,7 +15,9 @@ function storeFor(spec: { arithmetic: string }): (v: number) => number {
 
 export class FloatAdaptiveKernel implements AdaptiveKernel {
   adapting = true;
-  saturations = 0;
+  weightSaturations = 0;
+  /** Floating-point signal stores never clip (inputs are range-checked by the engine). */
+  readonly signalSaturations = 0;
   private readonly w: Float64Array;
   private readonly adaptLine: DelayLine<Float64Array>;
   private readonly evalLine: DelayLine<Float64Array>;
@@ -41,7 +43,8 @@ export class FloatAdaptiveKernel implements AdaptiveKernel {
     const { taps: L, algorithm, step, delta, leak, leakShift, meanRemovalEvery, weightLimit } = this.spec;
     const q = this.store;
     const w = this.w;
-    const shiftFactor = leakShift === null ? 0 : 2 ** -leakShift;
+    // The leak uses the unnormalized step, so a silent reference cannot make it diverge.
+    const c = q(step * leak) + (leakShift === null ? 0 : 2 ** -leakShift);
     const nlms = algorithm === 'nlms';
     for (let n = start; n < end; n++) {
       const xn = q(x[n]!);
@@ -76,14 +79,15 @@ export class FloatAdaptiveKernel implements AdaptiveKernel {
         }
       }
       const err = q(dn - q(acc));
-      const mu = nlms ? step / (delta + energy) : step;
+      // A silent reference with delta = 0 has nothing to adapt on: no update, not 0/0.
+      const norm = delta + energy;
+      const mu = nlms ? (norm > 0 ? step / norm : 0) : step;
       const g = q(mu * err);
-      const c = q(mu * leak) + shiftFactor;
       for (let k = 0; k < L; k++) {
         let v = q(w[k]! - c * w[k]! + g * line[p + k]!);
         if (!(v <= weightLimit && v >= -weightLimit)) {
           v = v > 0 ? weightLimit : v < 0 ? -weightLimit : 0;
-          this.saturations++;
+          this.weightSaturations++;
         }
         w[k] = v;
       }
@@ -101,8 +105,16 @@ export class FloatAdaptiveKernel implements AdaptiveKernel {
     return Float64Array.from(this.w);
   }
 
+  readWeights(out: Float64Array): void {
+    out.set(this.w);
+  }
+
   setWeights(w: ArrayLike<number>): void {
     for (let k = 0; k < this.w.length; k++) this.w[k] = this.store(w[k] ?? 0);
+  }
+
+  copyTo(fir: FirKernel): void {
+    fir.setWeights(this.getWeights());
   }
 
   reset(): void {
@@ -118,7 +130,7 @@ export class FloatAdaptiveKernel implements AdaptiveKernel {
 }
 
 export class FloatFirKernel implements FirKernel {
-  readonly saturations = 0;
+  readonly signalSaturations = 0;
   private readonly w: Float64Array;
   private readonly line: DelayLine<Float64Array>;
   private readonly store: (v: number) => number;
@@ -155,6 +167,10 @@ export class FloatFirKernel implements FirKernel {
 
   setWeights(w: ArrayLike<number>): void {
     for (let k = 0; k < this.w.length; k++) this.w[k] = this.store(w[k] ?? 0);
+  }
+
+  copyWeightsFrom(other: FirKernel): void {
+    this.setWeights(other.getWeights());
   }
 
   copyHistoryFrom(other: FirKernel): void {

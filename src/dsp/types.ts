@@ -14,7 +14,10 @@ export interface AdaptiveSpec {
   readonly step: number;
   /** NLMS regularization added to ||x||^2. */
   readonly delta: number;
-  /** gamma: w <- (1 - mu_n gamma) w + mu_n e x. */
+  /**
+   * gamma: w <- (1 - mu gamma) w + mu_n e x. The leak uses the unnormalized step mu even in NLMS,
+   * so it stays a contraction when the reference goes silent (README "Leak").
+   */
   readonly leak: number;
   /** k: w <- w - (w >> k) each sample; null for none. */
   readonly leakShift: number | null;
@@ -47,8 +50,10 @@ export interface AdaptiveKernel {
   readonly spec: AdaptiveSpec;
   /** Cleared to stop adaptation; filtering goes on. */
   adapting: boolean;
-  /** Stores that clipped (weights, outputs, inputs), since creation. */
-  readonly saturations: number;
+  /** Weight stores that clipped (the drift symptom), since creation. */
+  readonly weightSaturations: number;
+  /** Signal stores that clipped (input quantization, outputs, error, update gain), since creation. */
+  readonly signalSaturations: number;
   /**
    * x: reference, d: desired, noise: added to the reference the filter adapts on (null: none).
    * y, e receive the estimate and d - y of the current weights on the un-noised reference.
@@ -62,8 +67,16 @@ export interface AdaptiveKernel {
     start: number,
     end: number,
   ): void;
+  /** The taps in real units, tap 0 first. */
   getWeights(): Float64Array;
+  /** The same into `out` (length taps), allocating nothing. */
+  readWeights(out: Float64Array): void;
   setWeights(w: ArrayLike<number>): void;
+  /**
+   * Loads the filter this kernel runs into a clean-path kernel of the same spec, exactly: what
+   * the supervisor judged is what the clean path gets (for pbfdaf, the partition spectra).
+   */
+  copyTo(fir: FirKernel): void;
   /** Clears the delay line(s) and weights. */
   reset(): void;
   weightStats(out: WeightStats): WeightStats;
@@ -72,11 +85,14 @@ export interface AdaptiveKernel {
 /** A fixed-weight transversal filter in the same arithmetic: the clean path's filter. */
 export interface FirKernel {
   readonly taps: number;
-  readonly saturations: number;
+  /** Signal stores that clipped (input quantization, output, error), since creation. */
+  readonly signalSaturations: number;
   /** Filters x into y and writes e = d - y, over samples [start, end). */
   run(x: Float64Array, d: Float64Array, y: Float64Array, e: Float64Array, start: number, end: number): void;
   getWeights(): Float64Array;
   setWeights(w: ArrayLike<number>): void;
+  /** Takes over another filter's weights exactly (same spec). */
+  copyWeightsFrom(other: FirKernel): void;
   /** Takes over another filter's delay line (same arithmetic and length). */
   copyHistoryFrom(other: FirKernel): void;
   reset(): void;

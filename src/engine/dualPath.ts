@@ -1,6 +1,6 @@
 import { createAdaptiveKernel, createFirKernel } from '../dsp/kernels.js';
 import { GaussianNoise } from '../dsp/noise.js';
-import { cancellationDb, powerDb, sigmaOfDb } from '../dsp/level.js';
+import { INPUT_LIMIT, cancellationDb, powerDb, sigmaOfDb } from '../dsp/level.js';
 import type { AdaptiveKernel, AdaptiveSpec, FirKernel, WeightStats } from '../dsp/types.js';
 import { INITIAL_STATE, decide, type Decision, type Policy, type SupervisorState } from './supervisor.js';
 
@@ -21,8 +21,10 @@ export interface PathFigures {
   /** Smallest and largest weight (signed). */
   minWeight: number;
   maxWeight: number;
-  /** Clipped stores during the window. */
-  saturations: number;
+  /** Weight stores that clipped during the window (the drift symptom). */
+  weightSaturations: number;
+  /** Signal stores that clipped during the window (input, output, error: a level problem). */
+  signalSaturations: number;
 }
 
 export interface WindowReport {
@@ -32,7 +34,10 @@ export interface WindowReport {
   timeSeconds: number;
   referencePowerDb: number;
   desiredPowerDb: number;
+  /** Non-finite input samples in the window (replaced by 0). */
   nonFiniteSamples: number;
+  /** Finite input samples beyond +-INPUT_LIMIT in the window (clamped). */
+  outOfRangeSamples: number;
   adaptive: PathFigures;
   clean: PathFigures;
   decision: Decision;
@@ -49,7 +54,15 @@ export interface WeightSnapshot {
   readonly reason: HandoffReason;
 }
 
-export type HandoffReason = 'supervisor' | 'forced' | 'restored';
+/** Why the clean path took new weights: a passing window, an operator, a snapshot, an operator reset. */
+/** Clipped stores since the start, by path and by what clipped (the clean path's weights never adapt). */
+export interface EngineSaturations {
+  readonly adaptiveWeights: number;
+  readonly adaptiveSignal: number;
+  readonly cleanSignal: number;
+}
+
+export type HandoffReason = 'supervisor' | 'forced' | 'restored' | 'reset';
 
 export interface EngineListener {
   onWindow?(report: WindowReport): void;
@@ -94,13 +107,17 @@ export class DualPathEngine {
   private sumEA = 0;
   private sumEC = 0;
   private nonFiniteWindow = 0;
-  private satA0 = 0;
-  private satC0 = 0;
+  private outOfRangeWindow = 0;
+  private satAW0 = 0;
+  private satAS0 = 0;
+  private satCS0 = 0;
   private fadePos = 0;
   private fadeActive = false;
   private cleanSnapshot: WeightSnapshot;
   /** Non-finite input samples replaced by zero, since the start. */
   nonFiniteSamples = 0;
+  /** Finite input samples beyond +-INPUT_LIMIT clamped to it, since the start. */
+  outOfRangeSamples = 0;
 
   constructor(
     readonly settings: EngineSettings,
@@ -122,12 +139,25 @@ export class DualPathEngine {
     return this.sample;
   }
 
-  get adaptiveSaturations(): number {
-    return this.adaptive.saturations;
+  /** Clipped stores since the start: adaptive weights, adaptive signals, clean-path signals. */
+  get saturations(): EngineSaturations {
+    return {
+      adaptiveWeights: this.adaptiveWeightSaturations,
+      adaptiveSignal: this.adaptiveSignalSaturations,
+      cleanSignal: this.cleanSignalSaturations,
+    };
   }
 
-  get cleanSaturations(): number {
-    return this.clean.saturations + this.fading.saturations;
+  get adaptiveWeightSaturations(): number {
+    return this.adaptive.weightSaturations;
+  }
+
+  get adaptiveSignalSaturations(): number {
+    return this.adaptive.signalSaturations;
+  }
+
+  get cleanSignalSaturations(): number {
+    return this.clean.signalSaturations + this.fading.signalSaturations;
   }
 
   get cleanWeights(): WeightSnapshot {
@@ -136,6 +166,11 @@ export class DualPathEngine {
 
   adaptiveWeights(): Float64Array {
     return this.adaptive.getWeights();
+  }
+
+  /** The adaptive weights into `out` (length taps), allocating nothing. */
+  readAdaptiveWeights(out: Float64Array): void {
+    this.adaptive.readWeights(out);
   }
 
   get adapting(): boolean {
@@ -151,7 +186,8 @@ export class DualPathEngine {
 
   /**
    * Processes n samples of reference and desired; writes the clean path's and the adaptive
-   * path's output streams. Non-finite inputs are counted and replaced by zero.
+   * path's output streams. Non-finite inputs are counted and replaced by zero; finite inputs
+   * beyond +-INPUT_LIMIT are counted and clamped to it.
    */
   process(ref: Float64Array, des: Float64Array, cleanOut: Float64Array, adaptiveOut: Float64Array, n: number): void {
     let i = 0;
@@ -175,22 +211,36 @@ export class DualPathEngine {
   ): void {
     const { x, d, noise, yA, eA, yC, eC } = this;
     let bad = 0;
+    let over = 0;
     for (let j = 0; j < m; j++) {
       let xv = ref[offset + j]!;
       let dv = des[offset + j]!;
-      if (!Number.isFinite(xv)) {
-        xv = 0;
-        bad++;
+      // Compare, do not call: NaN fails both tests and +-Infinity passes the second.
+      if (!(xv <= INPUT_LIMIT && xv >= -INPUT_LIMIT)) {
+        if (xv !== xv || xv === Infinity || xv === -Infinity) {
+          xv = 0;
+          bad++;
+        } else {
+          xv = xv > 0 ? INPUT_LIMIT : -INPUT_LIMIT;
+          over++;
+        }
       }
-      if (!Number.isFinite(dv)) {
-        dv = 0;
-        bad++;
+      if (!(dv <= INPUT_LIMIT && dv >= -INPUT_LIMIT)) {
+        if (dv !== dv || dv === Infinity || dv === -Infinity) {
+          dv = 0;
+          bad++;
+        } else {
+          dv = dv > 0 ? INPUT_LIMIT : -INPUT_LIMIT;
+          over++;
+        }
       }
       x[j] = xv;
       d[j] = dv;
     }
     this.nonFiniteWindow += bad;
     this.nonFiniteSamples += bad;
+    this.outOfRangeWindow += over;
+    this.outOfRangeSamples += over;
     if (this.noiseGen !== null) this.noiseGen.fill(noise, this.noiseSigma, 0, m);
 
     this.adaptive.run(x, d, this.noiseGen === null ? null : noise, yA, eA, 0, m);
@@ -233,9 +283,13 @@ export class DualPathEngine {
   private closeWindow(): void {
     const n = this.windowSamples;
     const pd = this.sumD / n;
-    const adaptive = this.figures(this.adaptive.weightStats(this.wsA), this.sumEA / n, pd, this.adaptive.saturations - this.satA0);
-    const clean = this.figures(this.clean.weightStats(this.wsC), this.sumEC / n, pd, this.cleanSaturations - this.satC0);
+    const adaptiveWeights = this.adaptive.weightSaturations;
+    const adaptiveSignal = this.adaptive.signalSaturations;
+    const cleanSignal = this.cleanSignalSaturations;
+    const adaptive = this.figures(this.adaptive.weightStats(this.wsA), this.sumEA / n, pd, adaptiveWeights - this.satAW0, adaptiveSignal - this.satAS0);
+    const clean = this.figures(this.clean.weightStats(this.wsC), this.sumEC / n, pd, 0, cleanSignal - this.satCS0);
     const nonFinite = this.nonFiniteWindow;
+    const outOfRange = this.outOfRangeWindow;
     const referencePowerDb = powerDb(this.sumX / n);
     const { decision, state } = decide(
       this.supervisorState,
@@ -245,8 +299,9 @@ export class DualPathEngine {
         adaptiveCancellationDb: adaptive.cancellationDb,
         cleanErrorPowerDb: clean.errorPowerDb,
         adaptiveWeightMean: adaptive.weightMean,
-        adaptiveSaturations: adaptive.saturations,
+        adaptiveWeightSaturations: adaptive.weightSaturations,
         nonFiniteSamples: nonFinite,
+        outOfRangeSamples: outOfRange,
       },
       this.settings.supervisor,
       this.handoffsHeld,
@@ -261,6 +316,7 @@ export class DualPathEngine {
       referencePowerDb,
       desiredPowerDb: powerDb(pd),
       nonFiniteSamples: nonFinite,
+      outOfRangeSamples: outOfRange,
       adaptive,
       clean,
       decision,
@@ -270,12 +326,15 @@ export class DualPathEngine {
     this.inWindow = 0;
     this.sumX = this.sumD = this.sumEA = this.sumEC = 0;
     this.nonFiniteWindow = 0;
-    this.satA0 = this.adaptive.saturations;
-    this.satC0 = this.cleanSaturations;
+    this.outOfRangeWindow = 0;
+    // After a rollback the adaptive weights changed again; the next window counts from here.
+    this.satAW0 = this.adaptive.weightSaturations;
+    this.satAS0 = this.adaptive.signalSaturations;
+    this.satCS0 = this.cleanSignalSaturations;
     this.listener.onWindow?.(report);
   }
 
-  private figures(ws: WeightStats, pe: number, pd: number, saturations: number): PathFigures {
+  private figures(ws: WeightStats, pe: number, pd: number, weightSaturations: number, signalSaturations: number): PathFigures {
     return {
       errorPowerDb: powerDb(pe),
       cancellationDb: cancellationDb(pd, pe),
@@ -284,19 +343,20 @@ export class DualPathEngine {
       maxAbsWeight: ws.maxAbs,
       minWeight: ws.min,
       maxWeight: ws.max,
-      saturations,
+      weightSaturations,
+      signalSaturations,
     };
   }
 
-  /** Copies the adaptive weights to the clean path, crossfading its output. */
-  handoff(reason: HandoffReason): WeightSnapshot {
-    return this.installClean(this.adaptive.getWeights(), reason);
+  /** Gives the clean path the filter the adaptive path runs, crossfading its output. */
+  handoff(reason: 'supervisor' | 'forced'): WeightSnapshot {
+    return this.installClean((clean) => this.adaptive.copyTo(clean), reason);
   }
 
   /** Gives both paths the given weights (e.g. restored from a snapshot). */
   restore(weights: ArrayLike<number>): WeightSnapshot {
     this.adaptive.setWeights(weights);
-    return this.installClean(Float64Array.from(weights), 'restored');
+    return this.installClean((clean) => clean.setWeights(weights), 'restored');
   }
 
   /** Restarts the adaptive path from the clean path's weights. */
@@ -306,27 +366,33 @@ export class DualPathEngine {
     this.listener.onRollback?.(this.sample, reason);
   }
 
-  /** Clears both paths' weights and histories and the supervisor's counts. */
-  reset(): void {
+  /**
+   * Clears both paths' weights and histories and the supervisor's counts. The cleared clean
+   * weights are a new version, announced like any handoff (reason 'reset').
+   */
+  reset(): WeightSnapshot {
     this.adaptive.reset();
     this.clean.reset();
     this.fading.reset();
     this.fadeActive = false;
     this.supervisorState = INITIAL_STATE;
-    this.cleanSnapshot = { ...this.cleanSnapshot, version: this.cleanSnapshot.version + 1, weights: new Float64Array(this.settings.filter.taps), sample: this.sample };
+    return this.announce('reset');
   }
 
-  private installClean(weights: Float64Array, reason: HandoffReason): WeightSnapshot {
+  private installClean(load: (clean: FirKernel) => void, reason: HandoffReason): WeightSnapshot {
     if (this.crossfadeSamples > 0 && this.sample > 0) {
-      this.fading.setWeights(this.clean.getWeights());
+      this.fading.copyWeightsFrom(this.clean);
       this.fading.copyHistoryFrom(this.clean);
       this.fadePos = 0;
       this.fadeActive = true;
     }
-    this.clean.setWeights(weights);
-    // The snapshot holds what the clean filter really stores (quantized in fixed point).
-    const stored = this.clean.getWeights();
-    this.cleanSnapshot = { version: this.cleanSnapshot.version + 1, weights: stored, sample: this.sample, reason };
+    load(this.clean);
+    return this.announce(reason);
+  }
+
+  /** A new clean-path version: the snapshot holds what the clean filter really stores. */
+  private announce(reason: HandoffReason): WeightSnapshot {
+    this.cleanSnapshot = { version: this.cleanSnapshot.version + 1, weights: this.clean.getWeights(), sample: this.sample, reason };
     this.listener.onHandoff?.(this.cleanSnapshot);
     return this.cleanSnapshot;
   }

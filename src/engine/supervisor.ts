@@ -11,10 +11,12 @@ export type Criterion =
   | 'cancellation'
   /** |mean of the adaptive weights| exceeds maxWeightMean. */
   | 'weightMean'
-  /** A store in the adaptive path clipped during the window. */
+  /** An adaptive weight store clipped during the window (the drift symptom). */
   | 'saturation'
   /** The window held non-finite input samples. */
   | 'nonFinite'
+  /** The window held finite input samples beyond the accepted range (clamped). */
+  | 'outOfRange'
   /** The adaptive error power is not below the clean path's by marginDb. */
   | 'margin'
   /** The reference is quieter than minReferencePowerDb: nothing to learn from. */
@@ -25,12 +27,13 @@ export const CRITERIA: readonly Criterion[] = [
   'weightMean',
   'saturation',
   'nonFinite',
+  'outOfRange',
   'margin',
   'referenceLevel',
 ];
 
 /** Criteria that mean the adaptive path is unhealthy (they count toward rollback). */
-const HEALTH: ReadonlySet<Criterion> = new Set<Criterion>(['cancellation', 'weightMean', 'saturation', 'nonFinite']);
+const HEALTH: ReadonlySet<Criterion> = new Set<Criterion>(['cancellation', 'weightMean', 'saturation', 'nonFinite', 'outOfRange']);
 
 export interface Policy {
   readonly minCancellationDb: number;
@@ -49,8 +52,10 @@ export interface PolicyInput {
   readonly adaptiveCancellationDb: number;
   readonly cleanErrorPowerDb: number;
   readonly adaptiveWeightMean: number;
-  readonly adaptiveSaturations: number;
+  /** Adaptive weight stores that clipped in the window (signal clipping is a level problem, not a health one). */
+  readonly adaptiveWeightSaturations: number;
   readonly nonFiniteSamples: number;
+  readonly outOfRangeSamples: number;
 }
 
 export interface SupervisorState {
@@ -83,8 +88,9 @@ export function failedCriteria(input: PolicyInput, policy: Policy): Criterion[] 
   const failed: Criterion[] = [];
   if (!(input.adaptiveCancellationDb >= policy.minCancellationDb)) failed.push('cancellation');
   if (!(Math.abs(input.adaptiveWeightMean) <= policy.maxWeightMean)) failed.push('weightMean');
-  if (input.adaptiveSaturations > 0) failed.push('saturation');
+  if (input.adaptiveWeightSaturations > 0) failed.push('saturation');
   if (input.nonFiniteSamples > 0) failed.push('nonFinite');
+  if (input.outOfRangeSamples > 0) failed.push('outOfRange');
   if (!(input.adaptiveErrorPowerDb <= input.cleanErrorPowerDb - policy.marginDb)) failed.push('margin');
   if (policy.minReferencePowerDb !== null && !(input.referencePowerDb >= policy.minReferencePowerDb)) {
     failed.push('referenceLevel');

@@ -1,44 +1,9 @@
-import { DriftForecaster, trendPoints, type DriftForecast } from '../analysis/forecast.js';
 import type { Config } from '../config/schema.js';
-import type { EngineListener, PathFigures, WindowReport } from '../engine/dualPath.js';
-import { CRITERIA, type Criterion, type Outcome } from '../engine/supervisor.js';
+import type { Warning } from '../errors.js';
+import type { SummaryFigures } from '../run/summary.js';
 
-export interface SeriesPoint {
-  timeSeconds: number;
-  outcome: Outcome;
-  referencePowerDb: number;
-  desiredPowerDb: number;
-  nonFiniteSamples: number;
-  adaptive: PathFigures;
-  clean: PathFigures;
-  /** The drift forecast for the adaptive path made at the end of this window. */
-  forecast: { limitEtaSeconds: number | null; meanBoundEtaSeconds: number | null };
-}
-
-export interface DecisionEvent {
-  sample: number;
-  timeSeconds: number;
-  outcome: Outcome;
-  accepted: boolean;
-  failed: Criterion[];
-  rollback: boolean;
-  passes: number;
-  failures: number;
-  figures: {
-    referencePowerDb: number;
-    desiredPowerDb: number;
-    adaptiveErrorPowerDb: number;
-    adaptiveCancellationDb: number;
-    cleanErrorPowerDb: number;
-    cleanCancellationDb: number;
-    adaptiveWeightMean: number;
-    adaptiveMaxAbsWeight: number;
-    adaptiveSaturations: number;
-    nonFiniteSamples: number;
-  };
-}
-
-export interface Summary {
+/** summary.json: one policy's replay of one recording (README "summary.json"). */
+export interface Summary extends Omit<SummaryFigures, 'drift'> {
   tool: string;
   recording: string;
   /** The policy's name (its config file's base name), or "default". */
@@ -46,129 +11,46 @@ export interface Summary {
   sampleRate: number;
   samples: number;
   durationSeconds: number;
+  /** The part of the recording replayed (--from, --to), seconds. */
+  range: { fromSeconds: number; toSeconds: number };
   taps: number;
   /** Output samples lag input samples by this much (pbfdaf: one block). */
   latencySamples: number;
   config: Config;
-  warnings: string[];
-  handoffs: {
-    accepted: number;
-    rejected: number;
-    pending: number;
-    idle: number;
-    rollbacks: number;
-    rejectedBy: Record<Criterion, number>;
-  };
-  events: DecisionEvent[];
-  series: SeriesPoint[];
+  /** What was odd about the input, the step or the outputs, each with its code. */
+  warnings: Warning[];
   weights: { adaptive: number[]; clean: number[]; cleanVersion: number };
-  saturations: { adaptive: number; clean: number };
+  saturations: { adaptive: { weights: number; signal: number }; clean: { signal: number } };
   nonFiniteSamples: number;
+  outOfRangeSamples: number;
   /** The arithmetic's largest |w| and the supervisor's bound on |weight mean|. */
   limits: { weight: number; weightMean: number };
-  drift: {
-    /** The forecast at the end of the recording. */
-    final: DriftForecast;
-    /** When max |w| first reached the weight limit (a tap saturated), or null. */
-    firstLimitSeconds: number | null;
-    /** When |weight mean| first exceeded its bound, or null. */
-    firstMeanBoundSeconds: number | null;
-  };
-  outputs: { clean: string; adaptive: string; clippedSamples: number };
+  drift: SummaryFigures['drift'];
+  outputs: { clean: string; adaptive: string; decisions: string; clippedSamples: number; nonFiniteSamples: number };
+  /** Seconds this policy's engine took. */
+  engineSeconds: number;
+  /** Wall time of the whole replay (decoding, every policy, writing). */
   elapsedSeconds: number;
+  /** Seconds of recording replayed per second of wall time. */
   realtimeFactor: number;
 }
 
-/** Collects the engine's window reports into the summary's counts, events, series and drift forecast. */
-export class SummaryCollector implements EngineListener {
-  readonly limits: Summary['limits'];
-  private readonly forecaster: DriftForecaster;
-  private lastForecast: DriftForecast | null = null;
-  private firstLimitSeconds: number | null = null;
-  private firstMeanBoundSeconds: number | null = null;
+const fmtDb = (v: number | null): string => (v === null ? 'n/a' : `${v.toFixed(1)} dB`);
 
-  constructor(config: Config, weightLimit: number) {
-    this.limits = { weight: weightLimit, weightMean: config.supervisor.maxWeightMean };
-    this.forecaster = new DriftForecaster(trendPoints(config.supervisor.windowSeconds));
-  }
-
-  drift(): Summary['drift'] {
-    return {
-      final: this.lastForecast ?? this.forecaster.forecast(this.limits.weight, this.limits.weightMean),
-      firstLimitSeconds: this.firstLimitSeconds,
-      firstMeanBoundSeconds: this.firstMeanBoundSeconds,
-    };
-  }
-
-  readonly events: DecisionEvent[] = [];
-  readonly series: SeriesPoint[] = [];
-  readonly counts: Summary['handoffs'] = {
-    accepted: 0,
-    rejected: 0,
-    pending: 0,
-    idle: 0,
-    rollbacks: 0,
-    rejectedBy: Object.fromEntries(CRITERIA.map((c) => [c, 0])) as Record<Criterion, number>,
-  };
-
-  onWindow(r: WindowReport): void {
-    const { decision: dec } = r;
-    this.counts[dec.outcome]++;
-    if (dec.rollback) this.counts.rollbacks++;
-    if (dec.outcome === 'rejected') for (const c of dec.failed) this.counts.rejectedBy[c]++;
-    const a = r.adaptive;
-    this.forecaster.push(r.timeSeconds, a.weightMean, a.minWeight, a.maxWeight);
-    const f = this.forecaster.forecast(this.limits.weight, this.limits.weightMean);
-    this.lastForecast = f;
-    if (this.firstLimitSeconds === null && a.maxAbsWeight >= this.limits.weight) this.firstLimitSeconds = r.timeSeconds;
-    if (this.firstMeanBoundSeconds === null && Math.abs(a.weightMean) > this.limits.weightMean) this.firstMeanBoundSeconds = r.timeSeconds;
-    this.series.push({
-      timeSeconds: r.timeSeconds,
-      outcome: dec.outcome,
-      referencePowerDb: r.referencePowerDb,
-      desiredPowerDb: r.desiredPowerDb,
-      nonFiniteSamples: r.nonFiniteSamples,
-      adaptive: r.adaptive,
-      clean: r.clean,
-      forecast: { limitEtaSeconds: f.limitEtaSeconds, meanBoundEtaSeconds: f.meanBoundEtaSeconds },
-    });
-    if (dec.outcome === 'idle') return;
-    this.events.push({
-      sample: r.endSample,
-      timeSeconds: r.timeSeconds,
-      outcome: dec.outcome,
-      accepted: dec.outcome === 'accepted',
-      failed: [...dec.failed],
-      rollback: dec.rollback,
-      passes: dec.passes,
-      failures: dec.failures,
-      figures: {
-        referencePowerDb: r.referencePowerDb,
-        desiredPowerDb: r.desiredPowerDb,
-        adaptiveErrorPowerDb: r.adaptive.errorPowerDb,
-        adaptiveCancellationDb: r.adaptive.cancellationDb,
-        cleanErrorPowerDb: r.clean.errorPowerDb,
-        cleanCancellationDb: r.clean.cancellationDb,
-        adaptiveWeightMean: r.adaptive.weightMean,
-        adaptiveMaxAbsWeight: r.adaptive.maxAbsWeight,
-        adaptiveSaturations: r.adaptive.saturations,
-        nonFiniteSamples: r.nonFiniteSamples,
-      },
-    });
-  }
-}
-
-const fmtDb = (v: number): string => `${v.toFixed(1)} dB`;
-
-/** One line on the weights' drift: when a limit was reached, or when it will be. */
-export function describeDrift(s: Summary): string {
+/** One line on the weights' drift: when a limit was reached, or when it will be and how sure that is. */
+export function describeDrift(s: Pick<Summary, 'drift' | 'limits'>): string {
   const d = s.drift;
   if (d.firstLimitSeconds !== null) return `a tap reached the weight limit ${s.limits.weight.toPrecision(3)} at ${d.firstLimitSeconds.toFixed(1)} s`;
-  const eta = d.final.limitEtaSeconds;
-  const mean = d.final.meanBoundEtaSeconds;
-  const parts = [eta === null ? 'no drift toward the weight limit' : `a tap reaches the weight limit in ~${formatSeconds(eta)} at the current drift`];
+  const f = d.final;
+  if (f === null) return 'no forecast (no window completed)';
+  const parts: string[] = [];
+  if (f.limitEtaSeconds === null) parts.push('no drift toward the weight limit');
+  else {
+    const hi = f.limitEtaHighSeconds === null ? 'unbounded' : formatSeconds(f.limitEtaHighSeconds);
+    parts.push(`tap ${f.limitTap} reaches the weight limit in ~${formatSeconds(f.limitEtaSeconds)} (${formatSeconds(f.limitEtaLowSeconds ?? f.limitEtaSeconds)} to ${hi}) at the current drift`);
+  }
   if (d.firstMeanBoundSeconds !== null) parts.push(`|weight mean| passed its bound at ${d.firstMeanBoundSeconds.toFixed(1)} s`);
-  else if (mean !== null) parts.push(`|weight mean| reaches its bound in ~${formatSeconds(mean)}`);
+  else if (f.meanBoundEtaSeconds !== null) parts.push(`|weight mean| reaches its bound in ~${formatSeconds(f.meanBoundEtaSeconds)}`);
   return parts.join('; ');
 }
 
@@ -179,33 +61,37 @@ export function formatSeconds(s: number): string {
   return `${(s / 86400).toFixed(0)} days`;
 }
 
-function median(xs: number[]): number {
-  if (xs.length === 0) return NaN;
-  const s = [...xs].sort((a, b) => a - b);
-  return s[Math.floor(s.length / 2)]!;
-}
-
 /** A few lines for a person: what ran, what the supervisor did, how well the output cancels. */
 export function formatSummary(s: Summary, outDir: string): string {
   const c = s.config.filter;
-  const lastQuarter = s.series.slice(Math.floor((s.series.length * 3) / 4));
   const h = s.handoffs;
   const rejectedBy = Object.entries(h.rejectedBy)
     .filter(([, n]) => n > 0)
     .map(([k, n]) => `${k} ${n}`)
     .join(', ');
+  const window = s.config.supervisor.windowSeconds;
+  const range = s.range.fromSeconds > 0 || s.range.toSeconds < s.range.fromSeconds + s.durationSeconds - 1e-9 ? ` (${s.range.fromSeconds.toFixed(1)}-${s.range.toSeconds.toFixed(1)} s)` : '';
   const lines = [
-    `recording   ${s.recording}: ${s.durationSeconds.toFixed(1)} s at ${s.sampleRate} Hz`,
+    `recording   ${s.recording}: ${s.durationSeconds.toFixed(1)} s at ${s.sampleRate} Hz${range}`,
     `filter      ${c.algorithm} ${c.taps} taps, step ${c.step}, ${c.arithmetic}/${c.rounding}` +
       (c.leak > 0 ? `, leak ${c.leak}` : '') +
       (c.leakShift !== null ? `, leakShift ${c.leakShift}` : '') +
       (c.noiseInjectionDb !== null ? `, noise ${c.noiseInjectionDb} dB` : ''),
-    `handoffs    ${h.accepted} accepted, ${h.rejected} rejected${rejectedBy ? ` (${rejectedBy})` : ''}, ${h.rollbacks} rollbacks`,
-    `clean path  cancellation median ${fmtDb(median(s.series.map((p) => p.clean.cancellationDb)))}, last quarter ${fmtDb(median(lastQuarter.map((p) => p.clean.cancellationDb)))}`,
-    `saturations adaptive ${s.saturations.adaptive}, clean ${s.saturations.clean}; non-finite input samples ${s.nonFiniteSamples}`,
-    `drift       ${describeDrift(s)}`,
-    `speed       ${s.realtimeFactor.toFixed(1)}x real time`,
-    `written     ${outDir}/summary.json, clean.wav, adaptive.wav, report.html`,
   ];
+  if (s.windows === 0) {
+    lines.push(`windows     none completed: the recording holds ${s.samples} samples, a ${window} s supervisor window needs ${Math.round(window * s.sampleRate)}; no decision was made`);
+  } else {
+    lines.push(
+      `handoffs    ${h.accepted} accepted, ${h.rejected} rejected${rejectedBy ? ` (${rejectedBy})` : ''}, ${h.rollbacks} rollbacks`,
+      `clean path  cancellation median ${fmtDb(s.cancellation.clean.medianDb)}, last quarter ${fmtDb(s.cancellation.clean.lastQuarterMedianDb)}`,
+    );
+  }
+  const sat = s.saturations;
+  lines.push(
+    `saturations weights ${sat.adaptive.weights}; signal adaptive ${sat.adaptive.signal}, clean ${sat.clean.signal}; input non-finite ${s.nonFiniteSamples}, out of range ${s.outOfRangeSamples}`,
+    `drift       ${describeDrift(s)}`,
+    `speed       ${s.realtimeFactor.toFixed(1)}x real time (wall clock)`,
+    `written     ${outDir}/summary.json, decisions.ndjson, clean.wav, adaptive.wav, report.html`,
+  );
   return lines.join('\n');
 }

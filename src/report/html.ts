@@ -19,6 +19,8 @@ const DISPLAY_COLUMNS = 1500;
 
 export interface ReportInput {
   readonly recording: string;
+  readonly durationSeconds: number;
+  readonly sampleRate: number;
   readonly summaries: readonly Summary[];
   readonly figures: readonly PolicyFigures[];
   readonly gate: { baseline: string; worse: Record<string, string[]> } | null;
@@ -29,6 +31,36 @@ export interface ReportInput {
 const require = createRequire(import.meta.url);
 const UPLOT_JS = readFileSync(require.resolve('uplot/dist/uPlot.iife.min.js'), 'utf8');
 const UPLOT_CSS = readFileSync(require.resolve('uplot/dist/uPlot.min.css'), 'utf8');
+
+/**
+ * Decision markers, at most one accepted and one refused per display column (the refused one with
+ * the lowest adaptive cancellation), so a week of decisions draws as fast as a minute.
+ */
+function markers(s: Summary) {
+  const span = Math.max(s.durationSeconds, 1e-9);
+  const kept = new Map<string, Summary['events'][number]>();
+  for (const e of s.events) {
+    if (e.outcome !== 'accepted' && e.outcome !== 'rejected') continue;
+    const key = `${e.outcome}:${Math.floor((e.timeSeconds / span) * DISPLAY_COLUMNS)}`;
+    const had = kept.get(key);
+    if (had === undefined || (e.outcome === 'rejected' && e.adaptive.cancellationDb < had.adaptive.cancellationDb)) kept.set(key, e);
+  }
+  return [...kept.values()]
+    .sort((a, b) => a.timeSeconds - b.timeSeconds)
+    .map((e) => ({
+      t: e.timeSeconds,
+      accepted: e.outcome === 'accepted',
+      failed: e.failed,
+      rollback: e.rollback,
+      a: e.adaptive.cancellationDb,
+      f: {
+        adaptiveErrorPowerDb: e.adaptive.errorPowerDb,
+        adaptiveCancellationDb: e.adaptive.cancellationDb,
+        cleanCancellationDb: e.clean.cancellationDb,
+        adaptiveWeightMean: e.adaptive.weightMean,
+      },
+    }));
+}
 
 function policyData(s: Summary) {
   const t = s.series.map((p) => p.timeSeconds);
@@ -41,19 +73,19 @@ function policyData(s: Summary) {
     DISPLAY_COLUMNS,
   );
   // A float arithmetic's guard (filter.weightLimit) far above the weights would flatten the plot.
-  const maxSeen = s.series.reduce((m, p) => Math.max(m, p.adaptive.maxAbsWeight), 0);
+  let maxSeen = 0;
+  for (const p of s.series) maxSeen = Math.max(maxSeen, p.adaptive.maxAbsWeight);
   return {
     name: s.policy,
     weightLimitShown: s.limits.weight <= 10 * maxSeen ? s.limits.weight : null,
     filter: `${s.config.filter.algorithm} ${s.config.filter.taps} taps, step ${s.config.filter.step}, ${s.config.filter.arithmetic}/${s.config.filter.rounding}`,
     limits: s.limits,
     drift: s.drift,
+    windows: s.windows,
     power,
     cancellation,
     weights,
-    events: s.events
-      .filter((e) => e.outcome === 'accepted' || e.outcome === 'rejected')
-      .map((e) => ({ t: e.timeSeconds, accepted: e.accepted, failed: e.failed, rollback: e.rollback, a: e.figures.adaptiveCancellationDb, f: e.figures })),
+    events: markers(s),
     taps: { adaptive: s.weights.adaptive, clean: s.weights.clean },
   };
 }
@@ -72,8 +104,8 @@ export function renderReport(input: ReportInput): string {
     version: VERSION,
     generated: new Date().toISOString(),
     recording: input.recording,
-    durationSeconds: input.summaries[0]?.durationSeconds ?? 0,
-    sampleRate: input.summaries[0]?.sampleRate ?? 0,
+    durationSeconds: input.durationSeconds,
+    sampleRate: input.sampleRate,
     rule: RULE,
     figures: input.figures,
     gate: input.gate,
@@ -92,7 +124,7 @@ h1 { font-size: 1.3em; } h2 { font-size: 1.1em; margin-top: 2em; border-bottom: 
 table { border-collapse: collapse; margin: 0.5em 0; } td, th { padding: 0.2em 0.7em; border-bottom: 1px solid #eee; text-align: right; }
 td:first-child, th:first-child { text-align: left; }
 .plot { margin: 0.8em 0; position: relative; } .note { color: #666; font-size: 0.9em; }
-.worse { color: #b00; } .ok { color: #070; } .poor { color: #b00; } .marginal { color: #a60; }
+.worse { color: #b00; } tr.suggested td { background: #eef6e8; font-weight: 600; } .ok { color: #070; } .poor { color: #b00; } .marginal { color: #a60; }
 #tip { position: fixed; pointer-events: none; background: #fff; border: 1px solid #888; padding: 0.3em 0.5em; font-size: 12px; display: none; z-index: 10; max-width: 28em; }
 </style>
 </head>
@@ -127,27 +159,33 @@ const REPORT_SCRIPT = String.raw`
   document.getElementById('meta').textContent = D.durationSeconds.toFixed(1) + ' s at ' + D.sampleRate + ' Hz; tapwarden ' + D.version + ', ' + D.generated;
   window.tapwardenPlots = [];
 
-  // Comparison table
+  // Comparison table (replays only)
   const cmp = document.getElementById('comparison');
-  cmp.appendChild(el('h2', {}, 'Policies'));
-  const t = el('table');
-  const head = ['policy', 'clean healthy', 'median cancellation', '5th percentile', 'worst burst', 'handoffs', 'refused', 'saturations', 'max |weight mean|', 'verdict'];
-  const tr = el('tr'); head.forEach((h) => tr.appendChild(el('th', {}, h))); t.appendChild(tr);
-  D.figures.forEach((f) => {
-    const r = el('tr');
-    const b = f.worstBurst;
-    const worse = D.gate && D.gate.worse[f.name];
-    [f.name, (100 * f.healthyShare).toFixed(1) + ' %', f.cleanCancellationMedianDb.toFixed(1) + ' dB', f.cleanCancellationP5Db.toFixed(1) + ' dB',
-     b ? b.seconds.toFixed(1) + ' s at ' + b.peakErrorPowerDb.toFixed(0) + ' dB' : 'none', f.handoffsAccepted, f.handoffsRejected,
-     f.saturations.adaptive + f.saturations.clean, f.maxAbsWeightMean.toFixed(4)].forEach((v) => r.appendChild(el('td', {}, String(v))));
-    const v = el('td', { className: f.verdict }, f.verdict + (D.gate ? (D.gate.baseline === f.name ? ' (baseline)' : worse && worse.length ? ' worse: ' + worse.join('; ') : ' not worse') : ''));
-    if (worse && worse.length) v.className = 'worse';
-    r.appendChild(v); t.appendChild(r);
-  });
-  cmp.appendChild(t);
-  cmp.appendChild(el('p', { className: 'note' }, 'Clean healthy: windows whose clean-path cancellation reaches the policy\'s minCancellationDb without clipping. Verdict ok: healthy >= ' +
-    100 * D.rule.okHealthyShare + ' %, no clean-path saturation, no burst over ' + D.rule.okLongestBurstSeconds + ' s; poor: healthy < ' + 100 * D.rule.poorHealthyShare +
-    ' % or a burst over ' + D.rule.poorLongestBurstSeconds + ' s.'));
+  const dB = (v) => (v === null ? 'n/a' : v.toFixed(1) + ' dB');
+  if (D.figures.length) {
+    cmp.appendChild(el('h2', {}, 'Policies'));
+    const t = el('table');
+    const head = ['policy', 'clean healthy', 'median cancellation', '5th percentile', 'worst burst', 'first handoff', 'handoffs', 'refused', 'weight sat.', 'signal sat.', 'max |weight mean|', 'verdict'];
+    const tr = el('tr'); head.forEach((h) => tr.appendChild(el('th', {}, h))); t.appendChild(tr);
+    D.figures.forEach((f) => {
+      const r = el('tr');
+      const b = f.worstBurst;
+      const worse = D.gate && D.gate.worse[f.name];
+      [f.name, (100 * f.healthyShare).toFixed(1) + ' %', dB(f.cleanCancellationMedianDb), dB(f.cleanCancellationP5Db),
+       b ? b.seconds.toFixed(1) + ' s at ' + b.peakErrorPowerDb.toFixed(0) + ' dB' : 'none',
+       f.timeToFirstHandoffSeconds === null ? 'never' : f.timeToFirstHandoffSeconds.toFixed(1) + ' s', f.handoffsAccepted, f.handoffsRejected,
+       f.saturations.weights, f.saturations.signal, f.maxAbsWeightMean.toFixed(4)].forEach((v) => r.appendChild(el('td', {}, String(v))));
+      const v = el('td', { className: f.verdict }, f.verdict + (D.gate ? (D.gate.baseline === f.name ? ' (baseline)' : worse && worse.length ? ' worse: ' + worse.join('; ') : ' not worse') : ''));
+      if (worse && worse.length) v.className = 'worse';
+      r.appendChild(v); t.appendChild(r);
+    });
+    cmp.appendChild(t);
+    const j = D.figures[0].judgedAt;
+    cmp.appendChild(el('p', { className: 'note' }, 'Every policy judged against one threshold: clean healthy means clean-path cancellation >= ' + j.minCancellationDb + ' dB (from ' + j.source +
+      '). Bursts count after the first handoff; the convergence before it is the first-handoff column. Verdict ok: healthy >= ' +
+      100 * D.rule.okHealthyShare + ' %, no adaptive weight saturation, no burst over ' + D.rule.okLongestBurstSeconds + ' s; poor: healthy < ' + 100 * D.rule.poorHealthyShare +
+      ' % or a burst over ' + D.rule.poorLongestBurstSeconds + ' s.'));
+  }
 
   function plot(container, title, opts, data, draw) {
     const box = el('div', { className: 'plot' });
@@ -183,17 +221,33 @@ const REPORT_SCRIPT = String.raw`
     const a = D.analysis;
     const s = document.getElementById('analysis');
     s.appendChild(el('h2', {}, 'Excitation of the reference (' + a.taps + ' taps)'));
-    const rows = [['lambda_max', a.lambdaMax.toExponential(3)], ['lambda_min', a.lambdaMin.toExponential(3)],
+    const rows = [['samples used', a.samplesUsed + ' (' + (a.samplesUsed / D.sampleRate).toFixed(1) + ' s' + (a.windowsExcluded ? '; ' + a.windowsExcluded + ' faulty windows left out' : '') + ')'],
+      ['lambda_max', a.lambdaMax.toExponential(3)], ['lambda_min', a.lambdaMin.toExponential(3)],
       ['eigenvalue spread', a.eigenvalueSpread === null ? 'unbounded' : a.eigenvalueSpread.toExponential(2)],
       ['unexcited directions (< ' + a.thresholdDb + ' dB re lambda_max)', a.unexcitedDirections + ' of ' + a.taps],
       ['weight-mean direction', a.meanDirectionDb.toFixed(1) + ' dB re lambda_max'],
-      ['LMS step bound 2/(lambda_max + leak)', a.stepBounds.lms.toPrecision(4)], ['NLMS step bound', String(a.stepBounds.nlms)]];
-    if (a.leak) rows.push(['suggested leak (loss <= ' + a.leak.maxLossDb + ' dB)', a.leak.suggested === null ? 'none' : a.leak.suggested.toExponential(2)]);
+      ['LMS mean bound 2/(lambda_max + leak)', a.stepBounds.lms.toPrecision(4)], ['LMS mean-square bound 2/tr(R + leak I)', a.stepBounds.lmsTraceBound.toPrecision(4)],
+      ['NLMS step bound', '0 < step < ' + a.stepBounds.nlms]];
+    if (a.leak) rows.push(['suggested leak (loss <= ' + a.leak.maxLossDb + ' dB)', a.leak.suggested === null ? 'none qualifies' : a.leak.suggested.toExponential(2) + ' (filter.leak ' + a.leak.suggestedConfig.toExponential(2) + ' for ' + a.leak.algorithm + ')']);
     const tb = el('table'); rows.forEach(([k, v]) => { const r = el('tr'); r.appendChild(el('td', {}, k)); r.appendChild(el('td', {}, v)); tb.appendChild(r); });
     s.appendChild(tb);
-    plot(s, 'Eigenvalues of R', { scales: { x: { time: false }, y: { distr: 3 } }, axes: [{ label: 'index' }, { label: 'eigenvalue' }],
-      series: [{}, { label: 'lambda', stroke: '#642', width: 1, points: { show: true } }] },
-      [a.eigenvalues.map((_, i) => i), a.eigenvalues.map((v) => (v > 0 ? v : null))]);
+    const floor = a.lambdaMax * Math.pow(10, a.thresholdDb / 10);
+    const exp = (u, splits) => splits.map((v) => (v == null ? '' : v.toExponential(0)));
+    plot(s, 'Eigenvalues of R', { scales: { x: { time: false }, y: { distr: 3 } }, axes: [{ label: 'index' }, { label: 'eigenvalue', values: exp, size: 70 }],
+      series: [{}, { label: 'lambda', stroke: '#6b3d1f', width: 1, points: { show: true } }, { label: 'threshold (' + a.thresholdDb + ' dB)', stroke: '#c23', width: 1, dash: [6, 4] }] },
+      [a.eigenvalues.map((_, i) => i), a.eigenvalues.map((v) => (v > 0 ? v : null)), a.eigenvalues.map(() => floor)]);
+    if (a.leak) {
+      s.appendChild(el('h3', {}, 'Leak candidates'));
+      const lt = el('table');
+      const h = el('tr'); ['leak (re R)', 'filter.leak', 'relative bias', 'predicted cancellation', 'loss'].forEach((x) => h.appendChild(el('th', {}, x))); lt.appendChild(h);
+      a.leak.candidates.forEach((c) => {
+        const r = el('tr');
+        if (c.leak === a.leak.suggested) r.className = 'suggested';
+        [c.leak.toExponential(2), c.configLeak.toExponential(2), (100 * c.relativeBias).toFixed(2) + ' %', c.cancellationDb.toFixed(1) + ' dB', c.lossDb.toFixed(2) + ' dB'].forEach((v) => r.appendChild(el('td', {}, v)));
+        lt.appendChild(r);
+      });
+      s.appendChild(lt);
+    }
   }
 
   // Per policy
@@ -202,8 +256,11 @@ const REPORT_SCRIPT = String.raw`
     const sec = el('section'); sec.dataset.policy = p.name; ps.appendChild(sec);
     sec.appendChild(el('h2', {}, 'Policy ' + p.name + ': ' + p.filter));
     const d = p.drift;
-    sec.appendChild(el('p', { className: 'note' }, d.firstLimitSeconds !== null ? 'A tap reached the weight limit at ' + d.firstLimitSeconds.toFixed(1) + ' s.' :
-      d.final.limitEtaSeconds === null ? 'At the end the weights were not drifting toward the limit.' : 'At the end the weights were drifting: a tap would reach the limit in about ' + d.final.limitEtaSeconds.toFixed(0) + ' s.'));
+    sec.appendChild(el('p', { className: 'note' }, p.windows === 0 ? 'No supervisor window completed: the recording is shorter than one window.' :
+      d.firstLimitSeconds !== null ? 'A tap reached the weight limit at ' + d.firstLimitSeconds.toFixed(1) + ' s.' :
+      d.final.limitEtaSeconds === null ? 'At the end the weights were not drifting toward the limit.' :
+      'At the end the weights were drifting: tap ' + d.final.limitTap + ' would reach the limit in about ' + d.final.limitEtaSeconds.toFixed(0) + ' s (' +
+        d.final.limitEtaLowSeconds.toFixed(0) + ' to ' + (d.final.limitEtaHighSeconds === null ? 'unbounded' : d.final.limitEtaHighSeconds.toFixed(0) + ' s') + ').'));
 
     // decision markers, drawn over a plot, hover for the failed criteria
     const markers = (key) => ({

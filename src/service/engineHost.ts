@@ -1,97 +1,121 @@
-import { EventEmitter } from 'node:events';
 import { Worker } from 'node:worker_threads';
-import type { EngineSettings, HandoffReason, WindowReport } from '../engine/dualPath.js';
-import type { ControlOp, FromWorker, WeightsReply, WorkerInit } from './protocol.js';
+import type { Config } from '../config/schema.js';
+import { TapwardenError } from '../errors.js';
+import { fanOut, type RunSink } from '../run/run.js';
+import type { ControlOp, FromWorker, ToWorker, WeightsReply, WorkerInit } from './protocol.js';
+import type { Telemetry } from './telemetry.js';
 
-export interface HostEvents {
-  processed: [n: number, seconds: number];
-  window: [report: WindowReport];
-  handoff: [snapshot: { version: number; weights: number[]; sample: number; reason: HandoffReason }];
-  rollback: [sample: number, reason: 'supervisor' | 'forced'];
-  output: [block: Float64Array];
-  failed: [message: string];
+/** How long a request waits for the worker before it is answered with TW_ERR_ENGINE_FAILED. */
+const REQUEST_TIMEOUT_MS = 10_000;
+
+export interface HostCallbacks {
+  /** The feed's status message is due (one per feed.intervalSeconds of stream time). */
+  tick(streamSeconds: number): void;
+  state(up: boolean, reason: string): void;
+  warning(message: string): void;
+  ended(): void;
+  /** The worker died or stopped answering: requests now fail fast. */
+  failed(message: string): void;
 }
 
 /**
- * The main thread's side of the engine worker: a bounded queue of blocks in flight. A block
- * offered while `capacity` blocks wait is dropped and counted as an overrun, so a slow engine
- * never makes the capture side wait.
+ * The main thread's side of the engine worker. Records and events go to the sinks as they
+ * arrive; requests (weights, control) are answered by id, and fail fast with
+ * TW_ERR_ENGINE_FAILED once the worker is gone.
  */
-export class EngineHost extends EventEmitter<HostEvents> {
-  overruns = 0;
-  inFlight = 0;
-  samples = 0;
-  blocks = 0;
-  saturations = { adaptive: 0, clean: 0 };
-  nonFiniteSamples = 0;
+export class EngineHost {
+  failure: string | null = null;
   private readonly worker: Worker;
+  private readonly sink: Required<RunSink>;
   private nextId = 1;
   private closing = false;
-  private readonly pending = new Map<number, (w: WeightsReply) => void>();
+  private readonly pending = new Map<number, { resolve: (w: WeightsReply) => void; reject: (e: Error) => void; timer: NodeJS.Timeout }>();
 
   constructor(
-    readonly settings: EngineSettings,
-    readonly capacity: number,
-    wantOutput: boolean,
+    config: Config,
+    file: string | null,
+    sampleRate: number,
+    readonly telemetry: Telemetry,
+    sinks: readonly RunSink[],
+    private readonly cb: HostCallbacks,
   ) {
-    super();
-    const init: WorkerInit = { settings, wantOutput };
-    this.worker = new Worker(new URL('./engineWorker.js', import.meta.url), { workerData: init });
+    this.sink = fanOut(sinks);
+    const init: WorkerInit = { config, file, sampleRate, telemetry: this.telemetry.buffer };
+    this.worker = new Worker(new URL('./worker.js', import.meta.url), { workerData: init });
     this.worker.on('message', (m: FromWorker) => this.receive(m));
-    this.worker.on('error', (err) => this.emit('failed', err.message));
+    this.worker.on('error', (err) => this.fail(`the engine worker failed: ${err.message}`));
     this.worker.on('exit', (code) => {
-      if (!this.closing) this.emit('failed', `the engine worker exited with code ${code}`);
+      if (!this.closing) this.fail(`the engine worker exited with code ${code}`);
     });
   }
 
-  get hasRoom(): boolean {
-    return this.inFlight < this.capacity;
-  }
-
-  /** Queues a block; false (and an overrun) when the queue is full. */
-  submit(ref: Float64Array, des: Float64Array, n: number): boolean {
-    if (!this.hasRoom) {
-      this.overruns++;
-      return false;
+  private fail(message: string): void {
+    if (this.failure !== null) return;
+    this.failure = message;
+    for (const [id, p] of this.pending) {
+      clearTimeout(p.timer);
+      p.reject(new TapwardenError('TW_ERR_ENGINE_FAILED', { reason: message }));
+      this.pending.delete(id);
     }
-    this.inFlight++;
-    this.worker.postMessage({ t: 'block', ref, des, n }, [ref.buffer as ArrayBuffer, des.buffer as ArrayBuffer]);
-    return true;
+    this.cb.failed(message);
   }
 
   private receive(m: FromWorker): void {
     switch (m.t) {
-      case 'done':
-        this.inFlight--;
-        this.samples += m.n;
-        this.blocks++;
-        this.saturations = m.saturations;
-        this.nonFiniteSamples = m.nonFinite;
-        this.emit('processed', m.n, m.seconds);
-        if (m.output) this.emit('output', m.output);
+      case 'record':
+        this.sink.onRecord(m.record);
         break;
-      case 'window':
-        this.emit('window', m.report);
+      case 'event':
+        this.sink.onEvent(m.event, m.weights);
         break;
-      case 'handoff':
-        this.emit('handoff', m);
+      case 'tick':
+        this.cb.tick(m.streamSeconds);
         break;
-      case 'rollback':
-        this.emit('rollback', m.sample, m.reason);
+      case 'state':
+        this.cb.state(m.up, m.reason);
         break;
-      case 'reply':
-        this.pending.get(m.id)?.(m.weights);
-        this.pending.delete(m.id);
+      case 'warning':
+        this.cb.warning(m.message);
+        break;
+      case 'ended':
+        this.cb.ended();
+        break;
+      case 'reply': {
+        const p = this.pending.get(m.id);
+        if (p) {
+          clearTimeout(p.timer);
+          this.pending.delete(m.id);
+          p.resolve(m.weights);
+        }
+        break;
+      }
+      case 'failed':
+        if (m.id === null) this.fail(m.message);
+        else {
+          const p = this.pending.get(m.id);
+          this.pending.delete(m.id);
+          if (p) {
+            clearTimeout(p.timer);
+            p.reject(new TapwardenError('TW_ERR_ENGINE_FAILED', { reason: m.message }));
+          }
+        }
         break;
     }
   }
 
-  private request(make: (id: number) => object): Promise<WeightsReply> {
+  private request(make: (id: number) => ToWorker): Promise<WeightsReply> {
+    if (this.failure !== null) return Promise.reject(new TapwardenError('TW_ERR_ENGINE_FAILED', { reason: this.failure }));
     const id = this.nextId++;
-    return new Promise((resolve) => {
-      this.pending.set(id, resolve);
+    return new Promise((resolve, reject) => {
+      const timer = setTimeout(() => this.fail(`the engine worker did not answer within ${REQUEST_TIMEOUT_MS / 1000} s`), REQUEST_TIMEOUT_MS);
+      this.pending.set(id, { resolve, reject, timer });
       this.worker.postMessage(make(id));
     });
+  }
+
+  /** Starts the source (after the HTTP side is listening). */
+  start(): void {
+    this.worker.postMessage({ t: 'start' } satisfies ToWorker);
   }
 
   control(op: ControlOp): Promise<WeightsReply> {
@@ -106,8 +130,14 @@ export class EngineHost extends EventEmitter<HostEvents> {
     return this.request((id) => ({ t: 'restore', weights, id }));
   }
 
+  /** Stops the source and playback; answers with the final weights. */
+  stop(): Promise<WeightsReply> {
+    return this.request((id) => ({ t: 'stop', id }));
+  }
+
   async close(): Promise<void> {
     this.closing = true;
+    for (const p of this.pending.values()) clearTimeout(p.timer);
     await this.worker.terminate();
   }
 }

@@ -3,6 +3,8 @@ import { closeSync, fsyncSync, openSync, readFileSync, renameSync, writeSync } f
 import { dirname } from 'node:path';
 import type { EngineSettings } from '../engine/dualPath.js';
 import { oneLine } from '../errors.js';
+import type { RunEvent } from '../run/record.js';
+import type { RunSink } from '../run/run.js';
 
 /**
  * The clean path's weights on disk. A write goes to a temporary file that is fsynced and then
@@ -122,5 +124,32 @@ export class SnapshotWriter {
     } catch (err) {
       this.onResult(false, `cannot save weights to ${this.file}: ${oneLine(err)}`);
     }
+  }
+}
+
+/**
+ * The run's persistence sink: every new clean-path version (a handoff, a forced handoff, an
+ * operator reset) is offered to the writer; a restored snapshot is not written back. It keeps the
+ * latest weights, so a shutdown can save them even when the engine cannot be asked.
+ */
+export class SnapshotSink implements RunSink {
+  latest: { weights: number[]; version: number } | null = null;
+
+  constructor(
+    private readonly writer: SnapshotWriter,
+    private readonly settings: EngineSettings,
+  ) {}
+
+  onEvent(e: RunEvent, weights: Float64Array | null): void {
+    if (e.type !== 'handoff' || weights === null) return;
+    this.latest = { weights: Array.from(weights), version: e.version };
+    if (e.reason !== 'restored') this.writer.offer(makeSnapshot(this.settings, this.latest.weights, e.version));
+  }
+
+  /** Saves these weights (or the latest known) now. */
+  save(final: { weights: number[]; version: number } | null): void {
+    const w = final ?? this.latest;
+    if (w !== null) this.writer.offer(makeSnapshot(this.settings, w.weights, w.version));
+    this.writer.flush();
   }
 }

@@ -1,52 +1,71 @@
+import { fork, type ChildProcess } from 'node:child_process';
+import type { Writable } from 'node:stream';
 import type { Config } from '../config/schema.js';
-import { openPlayback, resolveDevice, type Playback as Stream } from '../io/audio.js';
-import type { ServiceMetrics } from './metrics.js';
+import type { RunSink } from '../run/run.js';
+import { AUDIO_CHILD } from './sources/device.js';
+import type { Telemetry } from './telemetry.js';
+
+/** Blocks of clean output that may wait for the playback device; beyond that, blocks are dropped. */
+const PLAYBACK_QUEUE_BLOCKS = 8;
 
 /**
- * Plays the clean output on a device, hard-limited to stream.device.playbackPeakDb. The limit is
- * a safety clamp, not a mastering limiter: it keeps a diverged filter or a fault burst from
- * reaching full scale in someone's ears or on an actuator.
+ * Plays the clean output on a device, hard-limited to stream.device.playbackPeakDb, from the
+ * engine worker through a playback child process (src/io/audioChild.ts). The limit is a safety
+ * clamp, not a mastering limiter: it keeps a diverged filter or a fault burst from reaching full
+ * scale in someone's ears or on an actuator. Capture and playback clocks drift apart on a long
+ * trial; the queue toward the device is capped and every block dropped for it is counted.
  */
-export class Playback {
-  underruns = 0;
-  private stream: Stream | null = null;
-  private readonly peak: number;
-  private blocksWritten = 0;
+export class Playback implements RunSink {
+  private child: ChildProcess | null;
+  private readonly stdin: Writable;
+  private readonly full: number;
+  private buf = Buffer.alloc(0);
+  private readonly maxQueueBytes: number;
 
   constructor(
     config: Config,
     sampleRate: number,
-    private readonly metrics: ServiceMetrics,
+    private readonly telemetry: Telemetry,
     onProblem: (message: string) => void,
   ) {
-    this.peak = 10 ** (config.stream.device.playbackPeakDb / 20);
-    try {
-      const id = resolveDevice(config.stream.device.playback, 'output', 1);
-      this.stream = openPlayback({ deviceId: id, sampleRate, onError: onProblem });
-    } catch (err) {
-      onProblem((err as Error).message);
-    }
+    this.full = 10 ** (config.stream.device.playbackPeakDb / 20) * 32767;
+    this.maxQueueBytes = PLAYBACK_QUEUE_BLOCKS * config.stream.blockFrames * 2;
+    const options = { device: config.stream.device.playback, sampleRate, maxQueueBytes: this.maxQueueBytes };
+    const child = fork(AUDIO_CHILD, ['playback', JSON.stringify(options)], { stdio: ['pipe', 2, 2, 'ipc'], serialization: 'json' });
+    this.child = child;
+    this.stdin = child.stdin!;
+    this.stdin.on('error', () => {});
+    child.on('message', (m: { t: string; message?: string }) => {
+      if (m.t === 'underrun') telemetry.add('playbackUnderruns', 1);
+      else if (m.t === 'dropped') telemetry.add('playbackDroppedBlocks', 1);
+      else if (m.t === 'error') onProblem(m.message ?? 'playback failed');
+    });
+    child.on('exit', (code) => {
+      if (this.child !== null) onProblem(`the playback process exited (${code})`);
+      this.child = null;
+    });
   }
 
-  play(block: Float64Array): void {
-    if (this.stream === null) return;
-    // The device drained everything queued before this block came: an underrun.
-    if (this.blocksWritten > 4 && this.stream.queuedBytes === 0) {
-      this.underruns++;
-      this.metrics.underruns.inc();
+  onBlock(clean: Float64Array, _adaptive: Float64Array, n: number): void {
+    if (this.child === null) return;
+    if (this.stdin.writableLength + 2 * n > this.maxQueueBytes) {
+      this.telemetry.add('playbackDroppedBlocks', 1);
+      return;
     }
-    const b = Buffer.alloc(block.length * 2);
-    const full = this.peak * 32767;
-    for (let i = 0; i < block.length; i++) {
-      const v = Math.max(-full, Math.min(full, Math.round(block[i]! * 32768)));
-      b.writeInt16LE(Number.isFinite(v) ? v : 0, i * 2);
+    if (this.buf.length < 2 * n) this.buf = Buffer.alloc(2 * n);
+    const full = this.full;
+    for (let i = 0; i < n; i++) {
+      const v = Math.round(clean[i]! * 32768);
+      this.buf.writeInt16LE(v > full ? Math.floor(full) : v < -full ? -Math.floor(full) : v === v ? v : 0, 2 * i);
     }
-    this.stream.write(b);
-    this.blocksWritten++;
+    // A copy: the pipe may hold the buffer after write() returns.
+    this.stdin.write(Buffer.from(this.buf.subarray(0, 2 * n)));
   }
 
   stop(): void {
-    this.stream?.stop();
-    this.stream = null;
+    const child = this.child;
+    this.child = null;
+    this.stdin.end();
+    setTimeout(() => child?.kill('SIGKILL'), 500).unref();
   }
 }

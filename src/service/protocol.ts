@@ -1,11 +1,13 @@
-import type { EngineSettings, HandoffReason, WindowReport } from '../engine/dualPath.js';
+import type { Config } from '../config/schema.js';
+import type { DecisionRecord, RunEvent } from '../run/record.js';
 
-/** What the main thread tells the engine worker. */
+/** What the main thread asks of the engine worker; each request is answered by id. */
 export type ToWorker =
-  | { t: 'block'; ref: Float64Array; des: Float64Array; n: number }
+  | { t: 'start' }
   | { t: 'control'; op: ControlOp; id: number }
   | { t: 'weights'; id: number }
-  | { t: 'restore'; weights: number[]; id: number };
+  | { t: 'restore'; weights: number[]; id: number }
+  | { t: 'stop'; id: number };
 
 export type ControlOp =
   | { kind: 'handoff' }
@@ -24,14 +26,25 @@ export interface WeightsReply {
 
 /** What the engine worker tells the main thread. */
 export type FromWorker =
-  | { t: 'done'; n: number; seconds: number; saturations: { adaptive: number; clean: number }; nonFinite: number; output: Float64Array | null }
-  | { t: 'window'; report: WindowReport }
-  | { t: 'handoff'; version: number; weights: number[]; sample: number; reason: HandoffReason }
-  | { t: 'rollback'; sample: number; reason: 'supervisor' | 'forced' }
-  | { t: 'reply'; id: number; weights: WeightsReply };
+  /** One per window. */
+  | { t: 'record'; record: DecisionRecord }
+  /** A handoff (with the clean weights now held) or a rollback. */
+  | { t: 'event'; event: RunEvent; weights: Float64Array | null }
+  /** One per feed.intervalSeconds of stream time: the feed's status message is due. */
+  | { t: 'tick'; streamSeconds: number }
+  /** The source came up or went down. */
+  | { t: 'state'; up: boolean; reason: string }
+  /** A warning about the source (a damaged header, a step near its bound). */
+  | { t: 'warning'; message: string }
+  /** The source ended for good (a file without loop). */
+  | { t: 'ended' }
+  | { t: 'reply'; id: number; weights: WeightsReply }
+  | { t: 'failed'; id: number | null; message: string };
 
 export interface WorkerInit {
-  settings: EngineSettings;
-  /** Post the clean output of every block back (for playback). */
-  wantOutput: boolean;
+  config: Config;
+  /** The WAV file a file source streams (resolved: the demo when stream.file is null). */
+  file: string | null;
+  sampleRate: number;
+  telemetry: SharedArrayBuffer;
 }

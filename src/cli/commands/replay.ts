@@ -2,12 +2,14 @@ import { basename, extname, join } from 'node:path';
 import { writeFileSync } from 'node:fs';
 import { DEFAULT_CONFIG_PATH, loadConfig } from '../../config/load.js';
 import { DEMO_RECORDING, writeDemo } from '../../demo/write.js';
-import { TapwardenError, oneLine } from '../../errors.js';
+import { TapwardenError, oneLine, warningLine } from '../../errors.js';
 import { renderReport } from '../../report/html.js';
 import { figuresOf, formatComparison, worseThan } from '../../replay/compare.js';
-import { replayPolicies, writeJsonAtomic, type Policy } from '../../replay/run.js';
+import { replay, writeJsonAtomic, type Policy } from '../../replay/replay.js';
 import { describeDrift, formatSummary } from '../../replay/summary.js';
+import type { Judgement } from '../../run/summary.js';
 import type { Command } from '../command.js';
+import { seconds } from '../options.js';
 import { progressBar } from '../progress.js';
 
 function policyName(file: string, taken: Set<string>): string {
@@ -20,26 +22,34 @@ function policyName(file: string, taken: Set<string>): string {
 
 export const replayCommand: Command = {
   summary: 'run a recording through the engine (one or several policies) and report',
-  usage: `Usage: tapwarden replay [REC.wav] [--config FILE] [--policy P.yaml ...] [--gate BASELINE] [--out DIR]
+  usage: `Usage: tapwarden replay [REC.wav] [--config FILE] [--policy P.yaml ...] [--gate BASELINE]
+                        [--from SECONDS] [--to SECONDS] [--out DIR]
 
 Runs the dual-path engine over a recording as fast as the CPU allows and writes
-DIR/summary.json, DIR/clean.wav (the output path), DIR/adaptive.wav (the adapting path) and
-DIR/report.html. With no REC, replays the demo bench recording (written to DIR first).
+DIR/summary.json, DIR/decisions.ndjson (every window's decision record), DIR/clean.wav (the
+output path), DIR/adaptive.wav (the adapting path) and DIR/report.html. With no REC, replays
+the demo bench recording (written to DIR first).
 
 With --policy (repeatable), every policy runs over one decode of the recording: DIR/<policy>/
 holds each one's files, DIR/comparison.json and DIR/report.html compare them, and a table is
-printed. A policy file overlays the --config file (or the embedded default).
+printed. A policy file overlays the --config file (or the embedded default). Every policy's
+clean path is judged against one threshold: the gate baseline's supervisor.minCancellationDb,
+else the --config file's, else the default's.
 
 Options:
   --config FILE      YAML overriding config/default.yaml (keys in README.md)
   --policy FILE      a candidate policy; give it several times to compare
-  --gate BASELINE    exit ${8} when a policy is worse than BASELINE (a --policy file or its name)
+  --gate BASELINE    exit 8 when a policy is worse than BASELINE (one of the --policy files or its name)
+  --from SECONDS     start this far into the recording (default 0)
+  --to SECONDS       stop here (default: the end)
   --out DIR          output directory (default: tapwarden-out)
   -h, --help         this help`,
   options: {
     config: { type: 'string' },
     policy: { type: 'string', multiple: true },
     gate: { type: 'string' },
+    from: { type: 'string' },
+    to: { type: 'string' },
     out: { type: 'string', default: 'tapwarden-out' },
   },
   positionals: [0, 1],
@@ -48,6 +58,10 @@ Options:
     const configFile = values['config'] as string | undefined;
     const policyFiles = (values['policy'] as string[] | undefined) ?? [];
     const gateArg = values['gate'] as string | undefined;
+    if (gateArg !== undefined && policyFiles.length === 0) {
+      throw new TapwardenError('TW_ERR_USAGE', { detail: 'replay: --gate needs the policies to compare; allowed: --gate BASELINE with two or more --policy FILE' });
+    }
+    const range = { fromSeconds: seconds('replay', 'from', values['from']), toSeconds: seconds('replay', 'to', values['to']) };
     const taken = new Set<string>();
     const policies: Policy[] =
       policyFiles.length === 0
@@ -57,10 +71,16 @@ Options:
             config: loadConfig(configFile === undefined ? [f] : [configFile, f]),
             configFile: f,
           }));
-    const baseline = gateArg === undefined ? null : policies.find((p) => p.name === gateArg || p.configFile === gateArg);
-    if (gateArg !== undefined && (baseline === null || baseline === undefined)) {
+    const baseline = gateArg === undefined ? null : (policies.find((p) => p.name === gateArg || p.configFile === gateArg) ?? null);
+    if (gateArg !== undefined && baseline === null) {
       throw new TapwardenError('TW_ERR_USAGE', { detail: `replay: --gate ${gateArg} is not one of the policies; allowed: ${policies.map((p) => p.name).join(', ')}` });
     }
+    const judge: Judgement =
+      baseline !== null
+        ? { minCancellationDb: baseline.config.supervisor.minCancellationDb, source: `gate baseline ${baseline.name}` }
+        : policies.length === 1
+          ? { minCancellationDb: policies[0]!.config.supervisor.minCancellationDb, source: policies[0]!.name }
+          : { minCancellationDb: loadConfig(configFile).supervisor.minCancellationDb, source: configFile ?? 'the embedded default' };
     let recording = positionals[0];
     if (recording === undefined) {
       writeDemo(outDir);
@@ -69,7 +89,7 @@ Options:
     const bar = progressBar('replay');
     let result;
     try {
-      result = replayPolicies({ recording, policies, outDir, onProgress: (done, total) => bar.update(done, total) });
+      result = replay({ recording, policies, outDir, judge, range, onProgress: (done, total) => bar.update(done, total) });
     } finally {
       bar.stop();
     }
@@ -80,20 +100,34 @@ Options:
       for (const f of figures) if (f !== base) worse.set(f.name, worseThan(f, base, baseline.config.supervisor.windowSeconds));
     }
     const gate = baseline ? { baseline: baseline.name, worse: Object.fromEntries(worse) } : null;
-    const report = renderReport({ recording, summaries: result.summaries, figures, gate, spectrum: result.spectrum, analysis: null });
+    const report = renderReport({
+      recording,
+      durationSeconds: result.summaries[0]!.durationSeconds,
+      sampleRate: result.sampleRate,
+      summaries: result.summaries,
+      figures,
+      gate,
+      spectrum: result.spectrum,
+      analysis: null,
+    });
     try {
       writeFileSync(join(outDir, 'report.html'), report);
     } catch (err) {
       throw new TapwardenError('TW_ERR_OUTPUT_WRITE', { file: join(outDir, 'report.html'), reason: oneLine(err) });
     }
-    for (const w of new Set(result.summaries.flatMap((s) => s.warnings))) process.stderr.write(`tapwarden: warning: ${w}\n`);
+    const said = new Set<string>();
+    for (const w of result.summaries.flatMap((s) => s.warnings)) {
+      const line = warningLine(w.code, w.message);
+      if (!said.has(line)) process.stderr.write(line + '\n');
+      said.add(line);
+    }
     if (policies.length === 1) {
       process.stdout.write(formatSummary(result.summaries[0]!, outDir) + '\n');
     } else {
-      writeJsonAtomic(join(outDir, 'comparison.json'), { recording, reads: result.reads, policies: figures, gate });
+      writeJsonAtomic(join(outDir, 'comparison.json'), { recording, reads: result.reads, judgement: judge, policies: figures, gate });
       process.stdout.write(formatComparison(figures, baseline ? { baseline: baseline.name, worse } : null) + '\n');
       for (const s of result.summaries) process.stdout.write(`${s.policy}: ${describeDrift(s)}\n`);
-      process.stdout.write(`written     ${outDir}/comparison.json, report.html, and per policy: summary.json, clean.wav, adaptive.wav\n`);
+      process.stdout.write(`written     ${outDir}/comparison.json, report.html, and per policy: summary.json, decisions.ndjson, clean.wav, adaptive.wav\n`);
     }
     const failing = [...worse].filter(([, r]) => r.length > 0);
     if (failing.length > 0) {

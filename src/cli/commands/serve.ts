@@ -1,4 +1,5 @@
 import { DEFAULT_CONFIG_PATH, loadConfig } from '../../config/load.js';
+import { ERRORS } from '../../errors.js';
 import { startService } from '../../service/service.js';
 import type { Command } from '../command.js';
 
@@ -13,9 +14,10 @@ on http.host:http.port (default 127.0.0.1:9718):
   GET  /healthz, /readyz        alive; stream running
   GET  /api/status              configuration, current figures, recent decisions
   GET  /api/weights?path=P      clean or adaptive weights
-  WS   /api/feed                status messages and supervisor decisions
+  WS   /api/feed                decision records, events and status messages
   POST /api/control/...         handoff, adaptation, handoffs, rollback, reset (bearer token)
-Logs are JSON lines on stdout. SIGTERM or SIGINT saves the weights and stops.
+Logs are JSON lines on stdout. SIGTERM or SIGINT saves the weights and exits 0; if the engine
+fails, the weights last announced are saved and it exits ${ERRORS.TW_ERR_ENGINE_FAILED.exitCode}.
 
 Options:
   --config FILE  YAML overriding config/default.yaml
@@ -26,13 +28,13 @@ Options:
     const configFile = values['config'] as string | undefined;
     const config = loadConfig(configFile);
     const service = await startService(config, configFile ?? DEFAULT_CONFIG_PATH);
-    await new Promise<void>((resolve) => {
-      const stop = (signal: string) => void service.stop(`received ${signal}`).then(resolve);
-      process.once('SIGTERM', () => stop('SIGTERM'));
-      process.once('SIGINT', () => stop('SIGINT'));
+    const code = await new Promise<number>((resolve) => {
+      const stop = (reason: string, exitCode: number) => void service.stop(reason).then(() => resolve(exitCode));
+      process.once('SIGTERM', () => stop('received SIGTERM', 0));
+      process.once('SIGINT', () => stop('received SIGINT', 0));
+      void service.failed.then((why) => stop(`the engine failed: ${why}`, ERRORS.TW_ERR_ENGINE_FAILED.exitCode));
     });
-    // A capture stream blocked in the audio driver keeps the event loop alive; everything that
-    // matters (weights, logs) is flushed by now.
-    process.exit(0);
+    if (code !== 0) process.stderr.write(`tapwarden: the engine failed; the last clean weights were saved [TW_ERR_ENGINE_FAILED]\n`);
+    return code;
   },
 };

@@ -20,13 +20,14 @@ interface Exports {
   setFormat(f: number, nearest: number): void;
   reset(): void;
   getSat(): number;
+  getSatW(): number;
   getPosE(): number;
   setPosE(p: number): void;
   f64Run(n: number, flags: number, mu: number, delta: number, leak: number, shiftc: number, lim: number): void;
   f64Flush(noise: number, lim: number): void;
   f64Rebound(): void;
   f64Fir(n: number): void;
-  qRun(n: number, flags: number, muQ: bigint, deltaQ: bigint, gammaQ: bigint, shift: number): void;
+  qRun(n: number, flags: number, muQ: bigint, deltaQ: bigint, lfQ: bigint, shift: number): void;
   qFlush(noise: number, shift: number): void;
   qFir(n: number): void;
 }
@@ -98,7 +99,7 @@ export class WasmAdaptiveKernel implements AdaptiveKernel {
   private readonly scale: number;
   private readonly muQ: bigint;
   private readonly deltaQ: bigint;
-  private readonly gammaQ: bigint;
+  private readonly lfQ: bigint;
   private readonly shift: number;
   private readonly shiftc: number;
   private extraSat = 0;
@@ -109,16 +110,20 @@ export class WasmAdaptiveKernel implements AdaptiveKernel {
     this.fmt = formatOf(spec.arithmetic);
     this.inst = new Instance(spec.taps, this.fmt, spec.rounding);
     this.scale = this.fmt ? 2 ** -this.fmt.fracBits : 1;
-    const q = this.fmt ? fixedConstants(spec, this.fmt) : { muQ: 0, deltaQ: 0, gammaQ: 0 };
+    const q = this.fmt ? fixedConstants(spec, this.fmt) : { muQ: 0, deltaQ: 0, lfQ: 0 };
     this.muQ = BigInt(q.muQ);
     this.deltaQ = BigInt(q.deltaQ);
-    this.gammaQ = BigInt(q.gammaQ);
+    this.lfQ = BigInt(q.lfQ);
     this.shift = spec.leakShift ?? -1;
     this.shiftc = spec.leakShift === null ? 0 : 2 ** -spec.leakShift;
   }
 
-  get saturations(): number {
-    return this.inst.x.getSat() + this.extraSat;
+  get weightSaturations(): number {
+    return this.inst.x.getSatW() + this.extraSat;
+  }
+
+  get signalSaturations(): number {
+    return this.inst.x.getSat();
   }
 
   run(x: Float64Array, d: Float64Array, noise: Float64Array | null, y: Float64Array, e: Float64Array, start: number, end: number): void {
@@ -134,7 +139,7 @@ export class WasmAdaptiveKernel implements AdaptiveKernel {
       inst.io(1, n).set(d.subarray(i, i + n));
       if (noise !== null) inst.io(2, n).set(noise.subarray(i, i + n));
       if (this.fmt === null) inst.x.f64Run(n, flags, spec.step, spec.delta, spec.leak, this.shiftc, spec.weightLimit);
-      else inst.x.qRun(n, flags, this.muQ, this.deltaQ, this.gammaQ, this.shift);
+      else inst.x.qRun(n, flags, this.muQ, this.deltaQ, this.lfQ, this.shift);
       y.set(inst.io(3, n), i);
       e.set(inst.io(4, n), i);
       i += n;
@@ -181,9 +186,15 @@ export class WasmAdaptiveKernel implements AdaptiveKernel {
   }
 
   getWeights(): Float64Array {
+    const out = new Float64Array(this.spec.taps);
+    this.readWeights(out);
+    return out;
+  }
+
+  readWeights(out: Float64Array): void {
     this.flush();
     const v = this.view();
-    return Float64Array.from(v, (w) => w * this.scale);
+    for (let k = 0; k < v.length; k++) out[k] = v[k]! * this.scale;
   }
 
   setWeights(w: ArrayLike<number>): void {
@@ -193,6 +204,10 @@ export class WasmAdaptiveKernel implements AdaptiveKernel {
       v[k] = this.fmt === null ? (w[k] ?? 0) : this.clip(scaleRound(w[k] ?? 0, this.fmt.fracBits, this.spec.rounding));
     }
     if (this.fmt === null) this.inst.x.f64Rebound();
+  }
+
+  copyTo(fir: FirKernel): void {
+    fir.setWeights(this.getWeights());
   }
 
   reset(): void {
@@ -221,7 +236,7 @@ export class WasmFirKernel implements FirKernel {
     return this.spec.taps;
   }
 
-  get saturations(): number {
+  get signalSaturations(): number {
     return this.inst.x.getSat();
   }
 
@@ -249,6 +264,10 @@ export class WasmFirKernel implements FirKernel {
   setWeights(w: ArrayLike<number>): void {
     const v = this.view();
     for (let k = 0; k < v.length; k++) v[k] = this.fmt === null ? (w[k] ?? 0) : quantize(w[k] ?? 0, this.fmt, this.spec.rounding);
+  }
+
+  copyWeightsFrom(other: FirKernel): void {
+    this.setWeights(other.getWeights());
   }
 
   copyHistoryFrom(other: FirKernel): void {

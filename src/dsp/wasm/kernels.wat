@@ -36,7 +36,8 @@
   (global $qg (mut i64) (i64.const 0))     ;; fixed: pending gain g and leak lf
   (global $qlf (mut i64) (i64.const 0))
   (global $energy (mut i64) (i64.const 0)) ;; fixed: Q30 reference energy
-  (global $sat (mut i32) (i32.const 0))    ;; clipped stores, cumulative
+  (global $sat (mut i32) (i32.const 0))    ;; clipped signal stores, cumulative
+  (global $satW (mut i32) (i32.const 0))   ;; clipped weight stores, cumulative
 
   (func (export "setLayout") (param $L i32) (param $oW i32) (param $oLE i32) (param $oLA i32)
         (param $oX i32) (param $oD i32) (param $oN i32) (param $oY i32) (param $oE i32)
@@ -49,6 +50,7 @@
   (func (export "getPosE") (result i32) (global.get $posE))
   (func (export "setPosE") (param i32) (global.set $posE (local.get 0)))
   (func (export "getSat") (result i32) (global.get $sat))
+  (func (export "getSatW") (result i32) (global.get $satW))
   (func (export "reset")
     (global.set $posE (i32.const 0)) (global.set $posA (i32.const 0)) (global.set $pend (i32.const 0))
     (global.set $energy (i64.const 0)) (global.set $en (f64.const 0)) (global.set $count (i32.const 0))
@@ -78,7 +80,7 @@
             (select (local.get $lim)
               (select (f64.neg (local.get $lim)) (f64.const 0) (f64.lt (local.get $v) (f64.const 0)))
               (f64.gt (local.get $v) (f64.const 0))))
-          (global.set $sat (i32.add (global.get $sat) (i32.const 1)))))
+          (global.set $satW (i32.add (global.get $satW) (i32.const 1)))))
       (local.set $k (i32.add (local.get $k) (i32.const 1)))
       (br $l))))
 
@@ -381,10 +383,15 @@
       (f64.store (i32.add (global.get $oE) (local.get $i8)) (local.get $e))
       (if (i32.and (local.get $flags) (i32.const 4)) (then
         (local.set $err (f64.sub (local.get $d) (local.get $yA)))
-        (local.set $mun (select (f64.div (local.get $mu) (f64.add (local.get $delta) (global.get $en))) (local.get $mu)
-                                (i32.and (local.get $flags) (i32.const 1))))
+        ;; NLMS: mu / (delta + ||x||^2), or no step at all when that is 0 (a silent reference, delta 0)
+        (local.set $m (f64.add (local.get $delta) (global.get $en)))
+        (local.set $mun (select
+          (select (f64.div (local.get $mu) (local.get $m)) (f64.const 0) (f64.gt (local.get $m) (f64.const 0)))
+          (local.get $mu)
+          (i32.and (local.get $flags) (i32.const 1))))
         (global.set $pg (f64.mul (local.get $mun) (local.get $err)))
-        (global.set $pc (f64.add (f64.mul (local.get $mun) (local.get $leak)) (local.get $shiftc)))
+        ;; the leak uses the unnormalized step (bounded through silence)
+        (global.set $pc (f64.add (f64.mul (local.get $mu) (local.get $leak)) (local.get $shiftc)))
         (global.set $pend (i32.const 1))))
       (local.set $i (i32.add (local.get $i) (i32.const 1)))
       (br $sample))))
@@ -422,6 +429,14 @@
       (then (global.set $sat (i32.add (global.get $sat) (i32.const 1))) (return (global.get $qmax))))
     (if (i64.lt_s (local.get $v) (global.get $qmin))
       (then (global.set $sat (i32.add (global.get $sat) (i32.const 1))) (return (global.get $qmin))))
+    (local.get $v))
+
+  ;; the same for a weight store, counted apart (weight clipping is the drift symptom)
+  (func $satw (param $v i64) (result i64)
+    (if (i64.gt_s (local.get $v) (global.get $qmax))
+      (then (global.set $satW (i32.add (global.get $satW) (i32.const 1))) (return (global.get $qmax))))
+    (if (i64.lt_s (local.get $v) (global.get $qmin))
+      (then (global.set $satW (i32.add (global.get $satW) (i32.const 1))) (return (global.get $qmin))))
     (local.get $v))
 
   ;; v / 2^s rounded: floor, or floor(v / 2^s + 1/2)
@@ -517,7 +532,7 @@
         (i64.shr_s (i64.add (i64.mul (local.get $lf) (local.get $w)) (local.get $half)) (local.get $f))))
       (if (i64.ge_s (local.get $shift) (i64.const 0))
         (then (local.set $v (i64.sub (local.get $v) (i64.shr_s (local.get $w) (local.get $shift))))))
-      (i32.store (local.get $a) (i32.wrap_i64 (call $sat (local.get $v))))
+      (i32.store (local.get $a) (i32.wrap_i64 (call $satw (local.get $v))))
       (local.set $k (i32.add (local.get $k) (i32.const 1)))
       (br $l))))
 
@@ -562,7 +577,7 @@
       (local.set $pw (i32.add (local.get $pw) (i32.const 4)))
       (local.set $px (i32.add (local.get $px) (i32.const 4)))
       (br $l)))
-    (global.set $sat (i32.add (global.get $sat) (local.get $cnt)))
+    (global.set $satW (i32.add (global.get $satW) (local.get $cnt)))
     (if (result i64) (local.get $q15)
       (then (call $rnd (local.get $hi) (i64.const 15)))
       (else (call $combine (local.get $hi) (local.get $lo)))))
@@ -575,9 +590,10 @@
       (global.set $pend (i32.const 0)))))
 
   ;; n samples of the fixed-point adaptive path. flags: 1 nlms, 2 noise, 4 adapting.
-  ;; $shift is leakShift or -1. muQ is the Q16 step, deltaQ the Q30 regularization, gammaQ Qf.
+  ;; $shift is leakShift or -1. muQ is the Q16 step, deltaQ the Q30 regularization, lfQ the Qf
+  ;; per-sample leak factor rnd_16(muQ gammaQ).
   (func (export "qRun") (param $n i32) (param $flags i32) (param $muQ i64) (param $deltaQ i64)
-        (param $gammaQ i64) (param $shift i32)
+        (param $lfQ i64) (param $shift i32)
     (local $i i32) (local $i8 i32) (local $k i32) (local $a i32)
     (local $xq i64) (local $dq i64) (local $xa i64) (local $noise i32) (local $oU i32) (local $posU i32)
     (local $pxo i32) (local $pxe i32) (local $pxa i32)
@@ -629,7 +645,7 @@
               (i64.shr_s (i64.add (i64.mul (local.get $lf) (local.get $w)) (local.get $half)) (local.get $f))))
             (if (i64.ge_s (local.get $sh) (i64.const 0))
               (then (local.set $v (i64.sub (local.get $v) (i64.shr_s (local.get $w) (local.get $sh))))))
-            (local.set $v (call $sat (local.get $v)))
+            (local.set $v (call $satw (local.get $v)))
             (i32.store (local.get $a) (i32.wrap_i64 (local.get $v)))
             (local.set $p (i64.mul (local.get $v) (i64.load32_s (i32.add (local.get $pxe) (i32.shl (local.get $k) (i32.const 2))))))
             (local.set $hiE (i64.add (local.get $hiE) (i64.shr_s (local.get $p) (i64.const 16))))
@@ -663,9 +679,7 @@
             (select (f64.const 0.5) (f64.const 0) (i32.wrap_i64 (global.get $rn)))))))
           (if (i64.gt_s (local.get $s) (i64.const 2147483647)) (then (local.set $s (i64.const 2147483647))))))
         (global.set $qg (call $sat (call $rnd (i64.mul (local.get $s) (local.get $err)) (i64.const 16))))
-        (global.set $qlf (i64.const 0))
-        (if (i64.ne (local.get $gammaQ) (i64.const 0))
-          (then (global.set $qlf (call $sat (call $rnd (i64.mul (local.get $s) (local.get $gammaQ)) (i64.const 16))))))
+        (global.set $qlf (local.get $lfQ))
         (global.set $pend (i32.const 1))))
       (local.set $i (i32.add (local.get $i) (i32.const 1)))
       (br $sample))))

@@ -43,6 +43,9 @@ const KNOWN_TAGS: Record<number, string> = {
 /** Chunks that carry metadata only; skipped without a warning. */
 const QUIET_CHUNKS = new Set(['LIST', 'JUNK', 'junk', 'PAD ', 'fact', 'bext', 'cue ', 'id3 ', 'ID3 ', 'smpl', 'inst', 'iXML', 'acid', 'PEAK', 'FLLR', 'regn', 'umid', 'cart']);
 
+/** The longest fmt chunk body that carries fields tapwarden reads. */
+const FMT_MAX_BYTES = 64;
+
 export type ReadAt = (offset: number, length: number) => Buffer;
 
 function isChunkId(b: Buffer): boolean {
@@ -116,7 +119,8 @@ export function parseWavLayout(fileSize: number, readAt: ReadAt, file: string): 
     const size = hdr.readUInt32LE(4);
     const body = pos + 8;
     if (id === 'fmt ') {
-      fmt = parseFmt(readAt(body, Math.min(size, fileSize - body)), file);
+      // The fields end at byte 40 (EXTENSIBLE); a damaged size must not read the file into memory.
+      fmt = parseFmt(readAt(body, Math.min(size, FMT_MAX_BYTES, fileSize - body)), file);
     } else if (id === 'ds64' && riff === 'RF64') {
       const b = readAt(body, Math.min(size, 28));
       if (b.length >= 16) ds64DataBytes = Number(b.readBigUInt64LE(8));

@@ -2,8 +2,12 @@ import { closeSync, fstatSync, openSync, readSync } from 'node:fs';
 import { TapwardenError, oneLine } from '../../errors.js';
 import { parseWavLayout, type WavFormat, type WavLayout } from './layout.js';
 
-/** Frames decoded per read; the reader's memory does not grow with the file. */
-const READ_FRAMES = 8192;
+/**
+ * Bytes read at a time: the reader's buffer is this size whatever the header declares (65,535
+ * channels of float64 take 512 KiB a frame, so one frame always fits), and its memory does not
+ * grow with the file.
+ */
+const READ_BYTES = 1 << 20;
 
 /**
  * Streams a WAV file's frames as full-scale-normalized doubles, channel by channel.
@@ -20,6 +24,11 @@ export class WavReader {
   private readonly layout: WavLayout;
   private readonly buf: Buffer;
   private readonly view: DataView;
+  private readonly readFrames: number;
+  private readonly i16: Int16Array;
+  private readonly i32: Int32Array;
+  private readonly f32: Float32Array;
+  private readonly f64: Float64Array;
   private framePos = 0;
 
   private constructor(fd: number, layout: WavLayout) {
@@ -28,8 +37,17 @@ export class WavReader {
     this.format = layout.format;
     this.frames = layout.frames;
     this.warnings = layout.warnings;
-    this.buf = Buffer.alloc(READ_FRAMES * layout.format.blockAlign);
+    const align = layout.format.blockAlign;
+    this.readFrames = Math.max(1, Math.floor(READ_BYTES / align));
+    // Its own ArrayBuffer at offset 0 (Buffer.alloc never pools), so typed views are aligned.
+    this.buf = Buffer.alloc(this.readFrames * align);
     this.view = new DataView(this.buf.buffer, this.buf.byteOffset, this.buf.byteLength);
+    const ab = this.buf.buffer;
+    const fit = (w: number) => Math.floor(this.buf.byteLength / w);
+    this.i16 = new Int16Array(ab, 0, fit(2));
+    this.i32 = new Int32Array(ab, 0, fit(4));
+    this.f32 = new Float32Array(ab, 0, fit(4));
+    this.f64 = new Float64Array(ab, 0, fit(8));
   }
 
   static open(file: string): WavReader {
@@ -58,6 +76,16 @@ export class WavReader {
     return this.frames - this.framePos;
   }
 
+  /** The next frame read() decodes. */
+  get position(): number {
+    return this.framePos;
+  }
+
+  /** Moves to frame `frame` (clamped to 0..frames). */
+  seek(frame: number): void {
+    this.framePos = Math.max(0, Math.min(this.frames, Math.floor(frame)));
+  }
+
   /**
    * Decodes up to out[0].length frames into out[c] for each wanted channel index c of `channels`
    * (out[i] receives channel channels[i]). Returns the frames decoded; 0 at the end.
@@ -67,7 +95,7 @@ export class WavReader {
     const want = Math.min(out[0]!.length, this.remaining);
     let done = 0;
     while (done < want) {
-      const n = Math.min(want - done, READ_FRAMES);
+      const n = Math.min(want - done, this.readFrames);
       const bytes = n * blockAlign;
       let got = 0;
       while (got < bytes) {
@@ -86,29 +114,31 @@ export class WavReader {
   }
 
   private decode(channel: number, out: Float64Array, at: number, frames: number): void {
-    const { encoding, bitsPerSample, blockAlign } = this.format;
-    const v = this.view;
+    const { encoding, bitsPerSample, blockAlign, channels } = this.format;
     const width = bitsPerSample / 8;
-    let p = channel * width;
     if (encoding === 'float') {
-      if (bitsPerSample === 32) for (let i = 0; i < frames; i++, p += blockAlign) out[at + i] = v.getFloat32(p, true);
-      else for (let i = 0; i < frames; i++, p += blockAlign) out[at + i] = v.getFloat64(p, true);
+      const a = bitsPerSample === 32 ? this.f32 : this.f64;
+      for (let i = 0, p = channel; i < frames; i++, p += channels) out[at + i] = a[p]!;
       return;
     }
-    switch (bitsPerSample) {
-      case 8:
-        for (let i = 0; i < frames; i++, p += blockAlign) out[at + i] = (v.getUint8(p) - 128) / 128;
-        break;
-      case 16:
-        for (let i = 0; i < frames; i++, p += blockAlign) out[at + i] = v.getInt16(p, true) / 32768;
-        break;
-      case 24:
-        for (let i = 0; i < frames; i++, p += blockAlign) {
-          out[at + i] = ((v.getInt8(p + 2) << 16) | (v.getUint8(p + 1) << 8) | v.getUint8(p)) / 8388608;
-        }
-        break;
-      default:
-        for (let i = 0; i < frames; i++, p += blockAlign) out[at + i] = v.getInt32(p, true) / 2147483648;
+    if (bitsPerSample === 16) {
+      const a = this.i16;
+      for (let i = 0, p = channel; i < frames; i++, p += channels) out[at + i] = a[p]! / 32768;
+      return;
+    }
+    if (bitsPerSample === 32) {
+      const a = this.i32;
+      for (let i = 0, p = channel; i < frames; i++, p += channels) out[at + i] = a[p]! / 2147483648;
+      return;
+    }
+    const v = this.view;
+    let p = channel * width;
+    if (bitsPerSample === 8) {
+      for (let i = 0; i < frames; i++, p += blockAlign) out[at + i] = (v.getUint8(p) - 128) / 128;
+      return;
+    }
+    for (let i = 0; i < frames; i++, p += blockAlign) {
+      out[at + i] = ((v.getInt8(p + 2) << 16) | (v.getUint8(p + 1) << 8) | v.getUint8(p)) / 8388608;
     }
   }
 

@@ -1,33 +1,40 @@
-import { EventEmitter } from 'node:events';
+import { fork, type ChildProcess } from 'node:child_process';
+import type { Readable } from 'node:stream';
 import type { Config } from '../../config/schema.js';
-import { oneLine } from '../../errors.js';
-import { openCapture, resolveDevice, type Capture } from '../../io/audio.js';
-import type { Feeder, SourceEvents, StreamSource } from './source.js';
+import type { Telemetry } from '../telemetry.js';
+import type { SourceCallbacks, StreamSource } from './source.js';
 
 /** Seconds without data after which an open capture counts as stalled and is reopened. */
 const STALL_SECONDS = 5;
+export const AUDIO_CHILD = new URL('../../io/audioChild.js', import.meta.url);
 
 /**
- * Live capture through PortAudio. 16-bit interleaved frames are cut into blocks of the
- * reference and desired channels. A device that fails, stalls or disappears is reported and
- * reopened after `retrySeconds`; the service keeps running meanwhile.
+ * Live capture through PortAudio, in a child process (src/io/audioChild.ts) started from the
+ * engine worker: 16-bit interleaved frames arrive on a pipe straight into the worker, which cuts
+ * them into blocks of the reference and desired channels. A device that fails, stalls or
+ * disappears is reported and reopened after stream.device.retrySeconds; a child that cannot be
+ * stopped is killed.
  */
-export class DeviceSource extends EventEmitter<SourceEvents> implements StreamSource {
-  readonly sampleRate: number;
-  up = false;
-  private feeder: Feeder | null = null;
-  private capture: Capture | null = null;
-  private ref = new Float64Array(0);
-  private des = new Float64Array(0);
+export class DeviceSource implements StreamSource {
+  private child: ChildProcess | null = null;
+  private readonly ref: Float64Array;
+  private readonly des: Float64Array;
   private fill = 0;
+  /** A frame split across two pipe reads. */
+  private carry: Buffer = Buffer.alloc(0);
   private lastData = 0;
   private retryTimer: NodeJS.Timeout | null = null;
   private watchdog: NodeJS.Timeout | null = null;
   private stopped = false;
 
-  constructor(private readonly config: Config) {
-    super();
-    this.sampleRate = config.stream.device.sampleRate;
+  constructor(
+    private readonly config: Config,
+    private readonly telemetry: Telemetry,
+    private readonly cb: SourceCallbacks,
+  ) {
+    this.ref = new Float64Array(config.stream.blockFrames);
+    this.des = new Float64Array(config.stream.blockFrames);
+    telemetry.set('queueCapacity', config.stream.queueBlocks);
   }
 
   get description(): string {
@@ -35,54 +42,52 @@ export class DeviceSource extends EventEmitter<SourceEvents> implements StreamSo
     return `device ${d.input === null ? '(default)' : JSON.stringify(d.input)}, ${d.channels} channel(s) at ${d.sampleRate} Hz`;
   }
 
-  start(feeder: Feeder): void {
-    this.feeder = feeder;
+  start(): void {
     this.open();
     this.watchdog = setInterval(() => {
-      if (this.capture !== null && Date.now() - this.lastData > STALL_SECONDS * 1000) this.fail(`no data for ${STALL_SECONDS} s`);
+      if (this.child !== null && Date.now() - this.lastData > STALL_SECONDS * 1000) this.fail(`no data for ${STALL_SECONDS} s`);
     }, 500);
   }
 
   private setUp(up: boolean, reason: string): void {
-    if (this.up !== up) {
-      this.up = up;
-      this.emit('state', up, reason);
-    }
-  }
-
-  private newBlock(): void {
-    const n = this.config.stream.blockFrames;
-    this.ref = new Float64Array(n);
-    this.des = new Float64Array(n);
-    this.fill = 0;
+    this.cb.state(up, reason);
   }
 
   private open(): void {
     if (this.stopped) return;
     const d = this.config.stream.device;
-    try {
-      const deviceId = resolveDevice(d.input, 'input', d.channels);
-      this.newBlock();
-      this.lastData = Date.now();
-      this.capture = openCapture({
-        deviceId,
-        channels: d.channels,
-        sampleRate: d.sampleRate,
-        framesPerBuffer: this.config.stream.blockFrames,
-        onData: (b) => this.onData(b),
-        onError: (m) => this.fail(m),
-      });
-      this.emit('state', false, `opened ${this.description}; waiting for the first samples`);
-    } catch (err) {
-      this.fail(oneLine(err));
-    }
+    const frameBytes = 2 * d.channels;
+    const options = {
+      device: d.input,
+      channels: d.channels,
+      sampleRate: d.sampleRate,
+      framesPerBuffer: this.config.stream.blockFrames,
+      maxQueueBytes: this.config.stream.queueBlocks * this.config.stream.blockFrames * frameBytes,
+    };
+    this.fill = 0;
+    this.carry = Buffer.alloc(0);
+    this.lastData = Date.now();
+    // stdout and stderr of the child are this process's stderr: PortAudio's status lines stay
+    // out of the JSON log on stdout.
+    const child = fork(AUDIO_CHILD, ['capture', JSON.stringify(options)], { stdio: ['ignore', 2, 2, 'ipc', 'pipe'], serialization: 'json' });
+    this.child = child;
+    child.on('message', (m: { t: string; message?: string; bytes?: number }) => {
+      if (m.t === 'up') this.setUp(true, `capturing from ${this.description}`);
+      else if (m.t === 'overrun') this.telemetry.add('overruns', Math.max(1, Math.round((m.bytes ?? 0) / (frameBytes * this.config.stream.blockFrames))));
+      else if (m.t === 'error') this.fail(m.message ?? 'the capture failed');
+    });
+    child.on('exit', (code) => {
+      if (this.child === child) this.fail(`the capture process exited (${code})`);
+    });
+    (child.stdio[4] as Readable).on('data', (b: Buffer) => this.onData(b, frameBytes));
+    this.cb.state(false, `opened ${this.description}; waiting for the first samples`);
   }
 
   private fail(reason: string): void {
-    this.capture?.stop();
-    this.capture = null;
-    this.emit('state', false, `${reason}; retrying in ${this.config.stream.device.retrySeconds} s`);
-    this.up = false;
+    const child = this.child;
+    this.child = null;
+    child?.kill('SIGKILL');
+    this.setUp(false, `${reason}; retrying in ${this.config.stream.device.retrySeconds} s`);
     if (!this.stopped && this.retryTimer === null) {
       this.retryTimer = setTimeout(() => {
         this.retryTimer = null;
@@ -91,34 +96,33 @@ export class DeviceSource extends EventEmitter<SourceEvents> implements StreamSo
     }
   }
 
-  private onData(b: Buffer): void {
-    if (this.feeder === null) return;
+  private onData(chunk: Buffer, frameBytes: number): void {
+    if (this.stopped) return;
     this.lastData = Date.now();
-    if (!this.up) this.setUp(true, `capturing from ${this.description}`);
-    const channels = this.config.stream.device.channels;
+    const b = this.carry.length > 0 ? Buffer.concat([this.carry, chunk]) : chunk;
+    const frames = Math.floor(b.length / frameBytes);
     const rc = this.config.input.referenceChannel;
     const dc = this.config.input.desiredChannel;
-    const frames = Math.floor(b.length / (2 * channels));
     const n = this.ref.length;
     for (let i = 0; i < frames; i++) {
-      const at = i * channels * 2;
+      const at = i * frameBytes;
       this.ref[this.fill] = b.readInt16LE(at + rc * 2) / 32768;
       this.des[this.fill] = b.readInt16LE(at + dc * 2) / 32768;
       if (++this.fill === n) {
-        this.feeder!.submit(this.ref, this.des, n);
-        this.newBlock();
+        this.fill = 0;
+        this.cb.block(this.ref, this.des, n);
       }
     }
+    this.carry = b.subarray(frames * frameBytes);
   }
 
-  /**
-   * Stops delivering blocks. The capture stream is left to the process's exit: stopping a
-   * PortAudio stream joins its reader thread, which can sit in a blocked driver read forever.
-   */
   stop(): void {
+    if (this.stopped) return;
     this.stopped = true;
     if (this.retryTimer) clearTimeout(this.retryTimer);
     if (this.watchdog) clearInterval(this.watchdog);
-    this.feeder = null;
+    const child = this.child;
+    this.child = null;
+    child?.kill('SIGKILL');
   }
 }

@@ -1,34 +1,41 @@
-import { EventEmitter } from 'node:events';
 import type { Config } from '../../config/schema.js';
 import { WavReader } from '../../io/wav/reader.js';
-import type { Feeder, SourceEvents, StreamSource } from './source.js';
+import type { Telemetry } from '../telemetry.js';
+import type { SourceCallbacks, StreamSource } from './source.js';
+
+/** Wall time a free-running source works before it lets the worker's messages through. */
+const FREE_SLICE_MS = 5;
 
 /**
- * A WAV file as a live stream: paced at its sample rate by the wall clock (or as fast as the
- * engine takes it), optionally looped. A pacer that falls behind catches up at once, as a real
- * capture would, and the engine's queue counts what it cannot take.
+ * A WAV file as a live stream, inside the engine worker: paced at its sample rate by the worker's
+ * own clock (or as fast as the engine goes), optionally looped. A pacer that falls behind by
+ * more than stream.queueBlocks blocks drops the excess, as a capture device's buffer would, and
+ * counts the dropped blocks as overruns; nothing on the main thread can delay it.
  */
-export class FileSource extends EventEmitter<SourceEvents> implements StreamSource {
-  readonly sampleRate: number;
-  up = false;
-  private reader: WavReader;
+export class FileSource implements StreamSource {
+  private readonly reader: WavReader;
   private readonly channels: number[];
   private readonly blockFrames: number;
-  private feeder: Feeder | null = null;
-  private timer: NodeJS.Timeout | null = null;
+  private readonly ref: Float64Array;
+  private readonly des: Float64Array;
+  private timer: NodeJS.Timeout | NodeJS.Immediate | null = null;
   private startedAt = 0n;
+  /** Frames handed over or dropped since start (the stream position). */
   private emitted = 0;
   private stopped = false;
 
   constructor(
     readonly file: string,
     private readonly config: Config,
+    private readonly telemetry: Telemetry,
+    private readonly cb: SourceCallbacks,
   ) {
-    super();
     this.reader = WavReader.open(file);
-    this.sampleRate = this.reader.format.sampleRate;
     this.channels = [config.input.referenceChannel, config.input.desiredChannel];
     this.blockFrames = config.stream.blockFrames;
+    this.ref = new Float64Array(this.blockFrames);
+    this.des = new Float64Array(this.blockFrames);
+    telemetry.set('queueCapacity', config.stream.queueBlocks);
   }
 
   get description(): string {
@@ -36,69 +43,88 @@ export class FileSource extends EventEmitter<SourceEvents> implements StreamSour
     return `file ${this.file} (${pace}${loop ? ', looped' : ''})`;
   }
 
-  get warnings(): readonly string[] {
-    return this.reader.warnings;
+  get sampleRate(): number {
+    return this.reader.format.sampleRate;
   }
 
-  start(feeder: Feeder): void {
-    this.feeder = feeder;
+  start(): void {
     this.startedAt = process.hrtime.bigint();
-    this.setUp(true, 'streaming');
-    this.tick();
+    this.cb.state(true, 'streaming');
+    this.schedule(0);
   }
 
-  private setUp(up: boolean, reason: string): void {
-    if (this.up !== up) {
-      this.up = up;
-      this.emit('state', up, reason);
-    }
+  private schedule(ms: number): void {
+    if (this.stopped) return;
+    this.timer = this.config.stream.pace === 'free' ? setImmediate(this.tick) : setTimeout(this.tick, ms);
   }
 
-  private tick = (): void => {
+  private readonly tick = (): void => {
     this.timer = null;
     if (this.stopped) return;
-    const feeder = this.feeder!;
     if (this.config.stream.pace === 'free') {
-      while (feeder.hasRoom && !this.stopped) if (!this.emitBlock()) return;
-      if (!this.stopped) feeder.once('processed', this.tick);
+      const until = performance.now() + FREE_SLICE_MS;
+      while (performance.now() < until) if (!this.emitBlock()) return;
+      this.schedule(0);
       return;
     }
     const elapsed = Number(process.hrtime.bigint() - this.startedAt) / 1e9;
     const due = Math.floor(elapsed * this.sampleRate);
-    while (due - this.emitted >= this.blockFrames) if (!this.emitBlock()) return;
-    const blockMs = (1000 * this.blockFrames) / this.sampleRate;
-    this.timer = setTimeout(this.tick, Math.max(1, blockMs / 2));
+    const n = this.blockFrames;
+    const cap = this.config.stream.queueBlocks;
+    let behind = Math.floor((due - this.emitted) / n);
+    if (behind > cap) {
+      // The engine fell behind by more than the queue holds: those blocks are lost.
+      this.skip((behind - cap) * n);
+      this.telemetry.add('overruns', behind - cap);
+      behind = cap;
+    }
+    this.telemetry.set('queueDepth', Math.max(0, behind));
+    for (let b = 0; b < behind; b++) if (!this.emitBlock()) return;
+    this.telemetry.set('queueDepth', 0);
+    this.schedule(Math.max(1, (500 * n) / this.sampleRate));
   };
+
+  /** Reads `frames` frames past (looping as the stream would) without handing them over. */
+  private skip(frames: number): void {
+    let left = frames;
+    while (left > 0) {
+      const m = Math.min(left, this.reader.remaining);
+      this.reader.seek(this.reader.position + m);
+      left -= m;
+      this.emitted += m;
+      if (this.reader.remaining === 0) {
+        if (!this.config.stream.loop) return;
+        this.reader.seek(0);
+      }
+    }
+  }
 
   /** Reads and hands over one block; false when the file ended for good. */
   private emitBlock(): boolean {
     const n = this.blockFrames;
-    const ref = new Float64Array(n);
-    const des = new Float64Array(n);
-    let got = this.reader.read(this.channels, [ref, des]);
+    let got = this.reader.read(this.channels, [this.ref, this.des]);
     while (got < n && this.config.stream.loop && this.reader.frames > 0) {
-      this.reader.close();
-      this.reader = WavReader.open(this.file);
-      const r = new Float64Array(n - got);
-      const d = new Float64Array(n - got);
-      const more = this.reader.read(this.channels, [r, d]);
-      ref.set(r.subarray(0, more), got);
-      des.set(d.subarray(0, more), got);
-      got += more;
+      this.reader.seek(0);
+      got += this.reader.read(this.channels, [this.ref.subarray(got), this.des.subarray(got)]);
     }
     this.emitted += n;
-    if (got > 0) this.feeder!.submit(ref, des, got);
+    if (got > 0) this.cb.block(this.ref, this.des, got);
     if (got < n) {
-      this.setUp(false, 'the recording ended');
       this.stop();
+      this.cb.state(false, 'the recording ended');
+      this.cb.ended();
       return false;
     }
     return true;
   }
 
   stop(): void {
+    if (this.stopped) return;
     this.stopped = true;
-    if (this.timer) clearTimeout(this.timer);
+    if (this.timer !== null) {
+      clearTimeout(this.timer as NodeJS.Timeout);
+      clearImmediate(this.timer as NodeJS.Immediate);
+    }
     this.reader.close();
   }
 }

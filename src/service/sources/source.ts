@@ -1,23 +1,19 @@
-import type { EventEmitter } from 'node:events';
-
-/** Where a source hands its blocks: the engine's bounded queue. */
-export interface Feeder {
-  readonly hasRoom: boolean;
-  /** Queues a block (the arrays are transferred); false when it was dropped (an overrun). */
-  submit(ref: Float64Array, des: Float64Array, n: number): boolean;
-  /** Calls back once after the engine has taken a block. */
-  once(event: 'processed', listener: () => void): unknown;
+/**
+ * A stream of (reference, desired) blocks inside the engine worker: a paced WAV file or a capture
+ * device. Blocks are handed over synchronously and the arrays reused; state changes and the end
+ * of a file are reported through the callbacks.
+ */
+export interface SourceCallbacks {
+  /** n frames of reference and desired (the arrays are reused after the call). */
+  block(ref: Float64Array, des: Float64Array, n: number): void;
+  state(up: boolean, reason: string): void;
+  /** The source ended for good (a file without loop). */
+  ended(): void;
 }
 
-export interface SourceEvents {
-  state: [up: boolean, reason: string];
-}
-
-/** A stream of (reference, desired) blocks: a paced file or a capture device. */
-export interface StreamSource extends EventEmitter<SourceEvents> {
-  readonly sampleRate: number;
+export interface StreamSource {
   readonly description: string;
-  readonly up: boolean;
-  start(feeder: Feeder): void;
+  start(): void;
+  /** Stops delivering blocks; safe to call more than once. */
   stop(): void;
 }

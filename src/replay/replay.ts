@@ -1,0 +1,224 @@
+import { mkdirSync, renameSync, writeFileSync } from 'node:fs';
+import { join } from 'node:path';
+import { WelchPsd, spectrumSegment } from '../analysis/welch.js';
+import type { Config } from '../config/schema.js';
+import { weightLimitOf } from '../dsp/kernels.js';
+import { engineSettingsOf } from '../engine/settings.js';
+import { TapwardenError, oneLine, quote, type Warning } from '../errors.js';
+import { WavReader } from '../io/wav/reader.js';
+import { checkChannels, checkLmsStep, scanReference, type FrameRange, type ReferenceScan } from '../run/preflight.js';
+import { Run } from '../run/run.js';
+import { DecisionLog, WavOutputs } from '../run/sinks.js';
+import { SummarySink, type Judgement } from '../run/summary.js';
+import { VERSION } from '../version.js';
+import type { Summary } from './summary.js';
+
+/** One configuration to replay, named after its file. */
+export interface Policy {
+  readonly name: string;
+  readonly config: Config;
+  readonly configFile: string;
+}
+
+/** A part of the recording, in seconds; either end may be left open. */
+export interface SecondsRange {
+  readonly fromSeconds?: number;
+  readonly toSeconds?: number;
+}
+
+export interface ReplayOptions {
+  readonly recording: string;
+  readonly policies: readonly Policy[];
+  /** Where outputs go: directly (one policy) or in a folder per policy. */
+  readonly outDir: string;
+  /** The threshold every policy's clean path is judged against (one for all). */
+  readonly judge: Judgement;
+  readonly range?: SecondsRange;
+  readonly blockFrames?: number;
+  readonly onProgress?: (framesDone: number, framesTotal: number) => void;
+}
+
+export interface ReplayResult {
+  readonly summaries: Summary[];
+  /** Per policy, the folder its files were written to. */
+  readonly dirs: string[];
+  /** The recording was decoded once: reads of the file for all policies together. */
+  readonly reads: number;
+  readonly spectrum: { frequencies: number[]; psd: number[] };
+  readonly sampleRate: number;
+  /** Warnings about the input and the pre-flight checks (each output's own are in its summary). */
+  readonly warnings: Warning[];
+}
+
+function mkdir(dir: string): void {
+  try {
+    mkdirSync(dir, { recursive: true });
+  } catch (err) {
+    throw new TapwardenError('TW_ERR_OUTPUT_WRITE', { file: dir, reason: oneLine(err) });
+  }
+}
+
+/** Frames [from, to) for a range in seconds; throws TW_ERR_USAGE for one outside the recording. */
+export function framesOf(range: SecondsRange | undefined, frames: number, rate: number, file: string): FrameRange {
+  const duration = frames / rate;
+  const from = range?.fromSeconds ?? 0;
+  const to = range?.toSeconds ?? duration;
+  if (!(from >= 0) || !(from < duration)) {
+    throw new TapwardenError('TW_ERR_USAGE', { detail: `--from ${quote(from)} is not allowed for ${file}; allowed: 0 <= from < ${duration.toFixed(3)} s (its length)` });
+  }
+  if (!(to > from)) throw new TapwardenError('TW_ERR_USAGE', { detail: `--to ${quote(to)} is not allowed; allowed: a time after --from (${from} s)` });
+  return { from: Math.round(from * rate), to: Math.min(frames, Math.round(to * rate)) };
+}
+
+/**
+ * Replays a recording through one run per policy as fast as the CPU allows: each block is
+ * decoded once and fed to every run. Each run writes clean.wav, adaptive.wav and
+ * decisions.ndjson as it goes, and summary.json at the end.
+ */
+export function replay(opts: ReplayOptions): ReplayResult {
+  const started = process.hrtime.bigint();
+  const { recording, policies, outDir } = opts;
+  const first = policies[0]!;
+  for (const p of policies) {
+    if (JSON.stringify(p.config.input) !== JSON.stringify(first.config.input)) {
+      throw new TapwardenError('TW_ERR_CONFIG_VALUE', {
+        file: p.configFile,
+        detail: `input = ${quote(p.config.input)} is not allowed; allowed: the same input channels as ${first.name} (${JSON.stringify(first.config.input)})`,
+      });
+    }
+  }
+  const reader = WavReader.open(recording);
+  try {
+    const rate = reader.format.sampleRate;
+    checkChannels(reader.format.channels, first.config, recording);
+    const range = framesOf(opts.range, reader.frames, rate, recording);
+    const warnings: Warning[] = reader.warnings.map((message) => ({ code: 'TW_WARN_INPUT', message }));
+    let scan: ReferenceScan | null = null;
+    for (const p of policies) {
+      if (p.config.filter.algorithm !== 'lms') continue;
+      scan ??= scanReference(reader, first.config.input.referenceChannel, range);
+      for (const message of checkLmsStep(scan, p.config, p.configFile, rate)) warnings.push({ code: 'TW_WARN_STEP', message: `${p.name}: ${message}` });
+    }
+    reader.seek(range.from);
+    const readsBefore = reader.reads;
+    const block = opts.blockFrames ?? 4096;
+    const ref = new Float64Array(block);
+    const des = new Float64Array(block);
+    const psd = new WelchPsd(spectrumSegment(rate), rate);
+    const total = range.to - range.from;
+    const runs = policies.map((p) => {
+      const dir = policies.length === 1 ? outDir : join(outDir, p.name);
+      mkdir(dir);
+      const settings = engineSettingsOf(p.config, rate);
+      const windowSamples = Math.max(1, Math.round(p.config.supervisor.windowSeconds * rate));
+      const summary = new SummarySink({
+        windowSeconds: windowSamples / rate,
+        judge: opts.judge,
+        weightLimit: weightLimitOf(settings.filter),
+        meanBound: p.config.supervisor.maxWeightMean,
+        expectedWindows: Math.floor(total / windowSamples),
+      });
+      const log = new DecisionLog(join(dir, 'decisions.ndjson'));
+      const wavs = new WavOutputs(join(dir, 'clean.wav'), join(dir, 'adaptive.wav'), rate, p.config.output.encoding);
+      const run = new Run(settings, p.config.input.desiredChannel, [summary, log, wavs], block);
+      return { p, dir, run, summary, log, wavs, engineNs: 0n };
+    });
+    const channels = [first.config.input.referenceChannel, first.config.input.desiredChannel];
+    let done = 0;
+    while (done < total) {
+      const n = reader.read(channels, [ref.subarray(0, Math.min(block, total - done)), des]);
+      if (n === 0) break;
+      psd.push(ref, n);
+      for (const r of runs) {
+        const t0 = process.hrtime.bigint();
+        r.run.process(ref, des, n);
+        r.engineNs += process.hrtime.bigint() - t0;
+      }
+      done += n;
+      opts.onProgress?.(done, total);
+    }
+    for (const r of runs) {
+      r.wavs.close();
+      r.log.close();
+    }
+    const elapsedSeconds = Number(process.hrtime.bigint() - started) / 1e9;
+    const summaries = runs.map((r) => {
+      const { config } = r.p;
+      const e = r.run.engine;
+      const own = [...warnings];
+      if (done < total) own.push({ code: 'TW_WARN_INPUT', message: `the file ended after ${done} of ${total} frames` });
+      if (r.wavs.clippedSamples > 0) {
+        own.push({ code: 'TW_WARN_OUTPUT', message: `${r.p.name}: ${r.wavs.clippedSamples} output samples clipped to full scale in the ${config.output.encoding} output files` });
+      }
+      if (r.wavs.nonFiniteSamples > 0) own.push({ code: 'TW_WARN_OUTPUT', message: `${r.p.name}: ${r.wavs.nonFiniteSamples} non-finite output samples written as 0` });
+      const f = r.summary.figures();
+      const sat = e.saturations;
+      const summary: Summary = {
+        tool: `tapwarden ${VERSION}`,
+        recording,
+        policy: r.p.name,
+        sampleRate: rate,
+        samples: done,
+        durationSeconds: done / rate,
+        range: { fromSeconds: range.from / rate, toSeconds: (range.from + done) / rate },
+        taps: config.filter.taps,
+        latencySamples: config.filter.algorithm === 'pbfdaf' ? config.filter.blockSize : 0,
+        config,
+        warnings: own,
+        windows: f.windows,
+        handoffs: f.handoffs,
+        judgement: f.judgement,
+        cancellation: f.cancellation,
+        maxAbsWeightMean: f.maxAbsWeightMean,
+        events: f.events,
+        eventsOmitted: f.eventsOmitted,
+        series: f.series,
+        seriesWindowsPerColumn: f.seriesWindowsPerColumn,
+        weights: {
+          adaptive: Array.from(e.adaptiveWeights()),
+          clean: Array.from(e.cleanWeights.weights),
+          cleanVersion: e.cleanWeights.version,
+        },
+        saturations: { adaptive: { weights: sat.adaptiveWeights, signal: sat.adaptiveSignal }, clean: { signal: sat.cleanSignal } },
+        nonFiniteSamples: e.nonFiniteSamples,
+        outOfRangeSamples: e.outOfRangeSamples,
+        limits: { weight: weightLimitOf(r.run.settings.filter), weightMean: config.supervisor.maxWeightMean },
+        drift: f.drift,
+        outputs: {
+          clean: 'clean.wav',
+          adaptive: 'adaptive.wav',
+          decisions: 'decisions.ndjson',
+          clippedSamples: r.wavs.clippedSamples,
+          nonFiniteSamples: r.wavs.nonFiniteSamples,
+        },
+        engineSeconds: Number(r.engineNs) / 1e9,
+        elapsedSeconds,
+        realtimeFactor: elapsedSeconds > 0 ? done / rate / elapsedSeconds : 0,
+      };
+      writeJsonAtomic(join(r.dir, 'summary.json'), summary);
+      return summary;
+    });
+    const spectrum = psd.result();
+    return {
+      summaries,
+      dirs: runs.map((r) => r.dir),
+      reads: reader.reads - readsBefore,
+      spectrum: { frequencies: Array.from(spectrum.frequencies), psd: Array.from(spectrum.psd) },
+      sampleRate: rate,
+      warnings,
+    };
+  } finally {
+    reader.close();
+  }
+}
+
+/** Writes JSON through a temporary file and a rename, so a reader never sees half a file. */
+export function writeJsonAtomic(file: string, value: unknown): void {
+  const tmp = `${file}.tmp-${process.pid}`;
+  try {
+    writeFileSync(tmp, JSON.stringify(value, null, 1) + '\n');
+    renameSync(tmp, file);
+  } catch (err) {
+    throw new TapwardenError('TW_ERR_OUTPUT_WRITE', { file, reason: oneLine(err) });
+  }
+}

@@ -1,0 +1,41 @@
+import type { FastifyPluginAsync, FastifyRequest } from 'fastify';
+import { TapwardenError } from '../../errors.js';
+import { sendError } from '../app.js';
+import type { WeightsReply } from '../protocol.js';
+
+export interface StatusDeps {
+  status(): object;
+  ready(): { ready: boolean; reason: string };
+  weights(): Promise<WeightsReply>;
+}
+
+/** GET /healthz, /readyz, /api/status and /api/weights: read-only, open to anyone who can reach the port. */
+export function statusPlugin(deps: StatusDeps): FastifyPluginAsync {
+  return async (app) => {
+    app.get('/healthz', async () => ({ status: 'alive' }));
+    app.get('/readyz', async (_req, reply) => {
+      const r = deps.ready();
+      if (!r.ready) return sendError(reply, new TapwardenError('TW_ERR_NOT_READY', { reason: r.reason }));
+      return { status: 'ready' };
+    });
+    app.get('/api/status', async () => deps.status());
+    app.get(
+      '/api/weights',
+      {
+        schema: {
+          querystring: {
+            type: 'object',
+            additionalProperties: false,
+            required: ['path'],
+            properties: { path: { enum: ['clean', 'adaptive'] } },
+          },
+        },
+      },
+      async (req: FastifyRequest<{ Querystring: { path: 'clean' | 'adaptive' } }>) => {
+        const w = await deps.weights();
+        const path = req.query.path;
+        return { path, cleanVersion: w.cleanVersion, weights: path === 'clean' ? w.clean : w.adaptive };
+      },
+    );
+  };
+}
