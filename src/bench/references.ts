@@ -1,8 +1,9 @@
 import { execFileSync, spawnSync } from 'node:child_process';
 import { createHash } from 'node:crypto';
-import { existsSync, mkdirSync, readFileSync } from 'node:fs';
+import { existsSync, readFileSync } from 'node:fs';
 import { tmpdir } from 'node:os';
 import { join } from 'node:path';
+import { makeDirectory } from '../io/files.js';
 import { PACKAGE_ROOT } from '../paths.js';
 
 /** What an outside implementation managed on the same machine in the same run. */
@@ -21,7 +22,7 @@ export function buildCReference(): { binary: string } | { skipped: string } {
   if (cc === undefined) return { skipped: 'no C compiler (cc, gcc or clang) on this machine' };
   const source = readFileSync(C_SOURCE);
   const dir = join(tmpdir(), 'tapwarden-bench');
-  mkdirSync(dir, { recursive: true });
+  makeDirectory(dir);
   const binary = join(dir, `dualpath_nlms-${createHash('sha256').update(source).update(C_FLAGS.join(' ')).digest('hex').slice(0, 12)}`);
   if (!existsSync(binary)) {
     try {

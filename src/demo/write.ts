@@ -1,9 +1,10 @@
-import { copyFileSync, existsSync, mkdirSync, mkdtempSync, renameSync, rmSync, writeFileSync } from 'node:fs';
+import { copyFileSync, existsSync, mkdtempSync, renameSync, rmSync, writeFileSync } from 'node:fs';
 import { tmpdir } from 'node:os';
 import { join } from 'node:path';
 import { VERSION } from '../version.js';
 import { DEFAULT_CONFIG_PATH } from '../config/load.js';
 import { TapwardenError, oneLine } from '../errors.js';
+import { makeDirectory } from '../io/files.js';
 import { WavWriter } from '../io/wav/writer.js';
 import { BENCH, generateBench } from './scenario.js';
 
@@ -25,11 +26,7 @@ const DEMO_CONFIGS: ReadonlyArray<{ file: string; comment: string; body: string 
 
 /** Writes the demo recording (16-bit stereo: reference, measurement), its truth and configs. */
 export function writeDemo(outDir: string): string[] {
-  try {
-    mkdirSync(outDir, { recursive: true });
-  } catch (err) {
-    throw new TapwardenError('TW_ERR_OUTPUT_WRITE', { file: outDir, reason: oneLine(err) });
-  }
+  makeDirectory(outDir);
   const rec = generateBench(BENCH);
   const wav = new WavWriter(join(outDir, DEMO_RECORDING), BENCH.sampleRate, 2, 'pcm16');
   wav.write([rec.reference, rec.desired], rec.reference.length);

@@ -1,10 +1,12 @@
-import { mkdirSync, renameSync, writeFileSync } from 'node:fs';
+import { renameSync, writeFileSync } from 'node:fs';
 import { join } from 'node:path';
 import { WelchPsd, spectrumSegment } from '../analysis/welch.js';
 import type { Config } from '../config/schema.js';
 import { weightLimitOf } from '../dsp/kernels.js';
+import { INPUT_LIMIT } from '../dsp/level.js';
 import { engineSettingsOf } from '../engine/settings.js';
 import { TapwardenError, oneLine, quote, type Warning } from '../errors.js';
+import { makeDirectory } from '../io/files.js';
 import { WavReader } from '../io/wav/reader.js';
 import { checkChannels, checkLmsStep, scanReference, type FrameRange, type ReferenceScan } from '../run/preflight.js';
 import { Run } from '../run/run.js';
@@ -48,14 +50,6 @@ export interface ReplayResult {
   readonly sampleRate: number;
   /** Warnings about the input and the pre-flight checks (each output's own are in its summary). */
   readonly warnings: Warning[];
-}
-
-function mkdir(dir: string): void {
-  try {
-    mkdirSync(dir, { recursive: true });
-  } catch (err) {
-    throw new TapwardenError('TW_ERR_OUTPUT_WRITE', { file: dir, reason: oneLine(err) });
-  }
 }
 
 /** Frames [from, to) for a range in seconds; throws TW_ERR_USAGE for one outside the recording. */
@@ -108,7 +102,7 @@ export function replay(opts: ReplayOptions): ReplayResult {
     const total = range.to - range.from;
     const runs = policies.map((p) => {
       const dir = policies.length === 1 ? outDir : join(outDir, p.name);
-      mkdir(dir);
+      makeDirectory(dir);
       const settings = engineSettingsOf(p.config, rate);
       const windowSamples = Math.max(1, Math.round(p.config.supervisor.windowSeconds * rate));
       const summary = new SummarySink({
@@ -147,6 +141,10 @@ export function replay(opts: ReplayOptions): ReplayResult {
       const e = r.run.engine;
       const own = [...warnings];
       if (done < total) own.push({ code: 'TW_WARN_INPUT', message: `the file ended after ${done} of ${total} frames` });
+      if (e.nonFiniteSamples > 0) own.push({ code: 'TW_WARN_INPUT', message: `${e.nonFiniteSamples} non-finite input samples (NaN, infinite) replaced by 0` });
+      if (e.outOfRangeSamples > 0) {
+        own.push({ code: 'TW_WARN_INPUT', message: `${e.outOfRangeSamples} input samples beyond +-${INPUT_LIMIT} full scale clamped to it` });
+      }
       if (r.wavs.clippedSamples > 0) {
         own.push({ code: 'TW_WARN_OUTPUT', message: `${r.p.name}: ${r.wavs.clippedSamples} output samples clipped to full scale in the ${config.output.encoding} output files` });
       }

@@ -31,7 +31,7 @@ function trace(s: AdaptiveSpec) {
     peakMaxAbs = Math.max(peakMaxAbs, stats.maxAbs);
     peakMean = Math.max(peakMean, Math.abs(stats.mean));
   }
-  return { saturations: k.saturations, peakMaxAbs, peakMean };
+  return { saturations: k.weightSaturations, peakMaxAbs, peakMean };
 }
 
 describe('Q15 weight drift on a DC-blocked, band-limited input', () => {

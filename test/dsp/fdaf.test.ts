@@ -1,12 +1,16 @@
 import { Matrix, solve } from 'ml-matrix';
 import { describe, expect, it } from 'vitest';
 import { FdafAdaptiveKernel } from '../../src/dsp/fdaf.js';
+import { loadConfig } from '../../src/config/load.js';
+import { DualPathEngine } from '../../src/engine/dualPath.js';
+import { settings } from '../helpers/engine.js';
 import { correlations, distance, norm, spec, through, white, bandLimited } from '../helpers/signals.js';
 
-// PBFDAF: Soo & Pang, IEEE Trans. ASSP 38(2), 1990; Shynk, IEEE SP Magazine 9(1), 1992. The
-// constrained form equals time-domain block LMS (Ferrara 1980; Clark, Mitra & Parker 1981,
-// recalled from memory as REFERENCES.md says): w += mu sum over the block of e(n) x(n), with
-// e(n) computed from the weights held through the block.
+// PBFDAF: Soo & Pang, IEEE Trans. ASSP 38(2), 1990; Shynk, IEEE SP Magazine 9(1), 1992. With a
+// uniform step (no per-bin normalization) the constrained form equals time-domain block LMS
+// (Ferrara 1980; Clark, Mitra & Parker 1981, recalled from memory as docs/REFERENCES.md says):
+// w += mu sum over the block of e(n) x(n), with e(n) computed from the weights held through the
+// block. With the per-bin step it is not (a test below shows it).
 
 function blockLms(x: Float64Array, d: Float64Array, L: number, N: number, mu: number) {
   const w = new Float64Array(L);
@@ -89,6 +93,119 @@ describe('partitioned-block frequency-domain adaptive filter', () => {
       let mse = 0;
       for (let i = (3 * long) / 4; i < long; i++) mse += e[i]! ** 2;
       expect(mse / (long / 4)).toBeLessThan(2 * 0.01 ** 2);
+    });
+  }
+});
+
+/** References of every kind a rig produces, at -20 dB. */
+function reference(kind: string, n: number, seed: number): Float64Array {
+  const x = white(n, 1, seed);
+  if (kind === 'band') return bandLimited(n, 0.03, 0.3, 0.1, seed);
+  if (kind === 'ar') for (let i = 1; i < n; i++) x[i]! += 0.95 * x[i - 1]!;
+  if (kind === 'narrow') return bandLimited(n, 0.1, 0.12, 0.1, seed);
+  if (kind === 'tones') for (let i = 0; i < n; i++) x[i] = Math.sin(0.3 * i) + 0.5 * Math.sin(1.1 * i + 1) + 0.01 * x[i]!;
+  let s = 0;
+  for (const v of x) s += v * v;
+  const g = 0.1 / Math.sqrt(s / n);
+  return x.map((v) => v * g);
+}
+
+function cancellation(L: number, N: number, constrained: boolean, step: number, kind: string) {
+  const n = 100_000;
+  const x = reference(kind, n, 41);
+  const d = through(Array.from({ length: Math.min(L, 48) }, (_, k) => 0.5 * 0.9 ** k * Math.cos(0.5 * k)), x, white(n, 1e-4, 42));
+  const k = new FdafAdaptiveKernel(spec({ algorithm: 'pbfdaf', taps: L, step, delta: 1e-6, weightLimit: 1000 }), { blockSize: N, constrained });
+  const y = new Float64Array(n);
+  const e = new Float64Array(n);
+  k.run(x, d, null, y, e, 0, n);
+  let pe = 0;
+  let pd = 0;
+  for (let i = n - 10_000; i < n; i++) {
+    pe += e[i]! ** 2;
+    pd += d[i]! ** 2;
+  }
+  return { db: 10 * Math.log10(pd / pe), finite: y.every(Number.isFinite) && e.every(Number.isFinite), k };
+}
+
+describe('pbfdaf stability bound: step < 1 for both forms (measured; README "pbfdaf")', () => {
+  // Partitions P = 1, 4 and 16; white, band-limited, AR(1) 0.95, narrowband and two-tone
+  // references. The bound is measured, not derived: per-bin normalization with the gradient
+  // constraint has no closed-form bound tapwarden relies on.
+  const forms: Array<[number, number]> = [
+    [64, 64],
+    [256, 64],
+    [1024, 64],
+  ];
+  for (const [L, N] of forms) {
+    for (const constrained of [true, false]) {
+      it(`L ${L}, N ${N} (P ${L / N}), ${constrained ? 'constrained' : 'unconstrained'}: converges at step 0.99 on every reference`, () => {
+        for (const kind of ['white', 'band', 'ar', 'narrow', 'tones']) {
+          const r = cancellation(L, N, constrained, 0.99, kind);
+          expect(r.finite, kind).toBe(true);
+          expect(r.db, kind).toBeGreaterThan(20);
+        }
+      });
+    }
+  }
+
+  it('the bound is close: unconstrained diverges at 1.2 with partitions (at 1.5 with one), into the weight limit, outputs still finite', () => {
+    for (const [L, N, step] of [
+      [256, 64, 1.2],
+      [1024, 64, 1.2],
+      [64, 16, 1.2],
+      [64, 64, 1.5],
+    ] as const) {
+      const r = cancellation(L, N, false, step, 'white');
+      expect(r.db).toBeLessThan(0);
+      expect(r.finite).toBe(true);
+      expect(r.k.weightSaturations).toBeGreaterThan(0);
+      expect(Math.max(...r.k.getWeights().map(Math.abs))).toBeLessThanOrEqual(1000 + 1e-9);
+    }
+  });
+
+  it('the config refuses step >= 1', () => {
+    expect(() => loadConfig(undefined, { filter: { algorithm: 'pbfdaf', taps: 256, blockSize: 64, step: 1 } })).toThrow(/filter.step = 1 is not allowed with algorithm pbfdaf; allowed: 0 < step < 1/);
+    expect(() => loadConfig(undefined, { filter: { algorithm: 'pbfdaf', taps: 256, blockSize: 64, step: 0.99 } })).not.toThrow();
+  });
+});
+
+describe('pbfdaf weight limit and handoff', () => {
+  it('enforces filter.weightLimit: a diverging filter clips its taps, counts them, and its output stays finite', () => {
+    const n = 40_000;
+    const x = reference('white', n, 43);
+    const d = through([0.9, -0.5], x);
+    const k = new FdafAdaptiveKernel(spec({ algorithm: 'pbfdaf', taps: 64, step: 1.6, delta: 1e-6, weightLimit: 2 }), { blockSize: 64, constrained: false });
+    const y = new Float64Array(n);
+    const e = new Float64Array(n);
+    k.run(x, d, null, y, e, 0, n);
+    expect(k.weightSaturations).toBeGreaterThan(0);
+    expect(Math.max(...k.getWeights().map(Math.abs))).toBeLessThanOrEqual(2 + 1e-9);
+    expect(y.every(Number.isFinite) && e.every(Number.isFinite)).toBe(true);
+  });
+
+  for (const constrained of [true, false]) {
+    it(`${constrained ? 'constrained' : 'unconstrained'}: after a handoff the clean path outputs exactly what the adaptive path does`, () => {
+      const n = 60_000;
+      const x = reference('band', n, 44);
+      const d = through(Array.from({ length: 40 }, (_, k) => 0.5 * 0.9 ** k * Math.cos(0.5 * k)), x, white(n, 1e-4, 45));
+      const s = settings({ algorithm: 'pbfdaf', taps: 128, blockSize: 32, constrained, step: 0.5 }, { passesRequired: 1_000_000, crossfadeSeconds: 0 });
+      const engine = new DualPathEngine(s);
+      const clean = new Float64Array(n);
+      const adaptive = new Float64Array(n);
+      const half = n / 2;
+      engine.process(x, d, clean, adaptive, half);
+      engine.adapting = false;
+      engine.handoff('forced');
+      engine.process(x.subarray(half), d.subarray(half), clean.subarray(half), adaptive.subarray(half), half);
+      // One block of latency after the handoff, then the two paths are the same filter.
+      for (let i = half + 64; i < n; i++) expect(clean[i]).toBe(adaptive[i]);
+      let pe = 0;
+      let pd = 0;
+      for (let i = half + 64; i < n; i++) {
+        pe += clean[i]! ** 2;
+        pd += d[i]! ** 2;
+      }
+      expect(10 * Math.log10(pd / pe)).toBeGreaterThan(30);
     });
   }
 });

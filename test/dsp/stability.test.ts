@@ -66,10 +66,10 @@ describe('LMS stability bound 2/(lambda_max + gamma) (Haykin, Adaptive Filter Th
       const bound = lmsStepBound(lambdaMax, gamma);
       const below = runKernel(spec({ taps: L, step: 0.95 * bound, leak: gamma }), x, d);
       const above = runKernel(spec({ taps: L, step: 1.05 * bound, leak: gamma }), x, d);
-      expect(below.kernel.saturations).toBe(0);
+      expect(below.kernel.weightSaturations).toBe(0);
       expect(norm(below.kernel.getWeights())).toBeLessThan(norm(h));
       // Diverged: the weights ran into the float guard (weightLimit 1e6) and stay large.
-      expect(above.kernel.saturations).toBeGreaterThan(0);
+      expect(above.kernel.weightSaturations).toBeGreaterThan(0);
       expect(norm(above.kernel.getWeights())).toBeGreaterThan(1e5);
     });
   }

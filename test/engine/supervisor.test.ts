@@ -23,7 +23,8 @@ const good: PolicyInput = {
   adaptiveCancellationDb: 30,
   cleanErrorPowerDb: -40,
   adaptiveWeightMean: 0.01,
-  adaptiveSaturations: 0,
+  adaptiveWeightSaturations: 0,
+  outOfRangeSamples: 0,
   nonFiniteSamples: 0,
 };
 
@@ -32,8 +33,9 @@ describe('the handoff policy (a pure function)', () => {
     expect(failedCriteria(good, policy)).toEqual([]);
     expect(failedCriteria({ ...good, adaptiveCancellationDb: 5.9 }, policy)).toEqual(['cancellation']);
     expect(failedCriteria({ ...good, adaptiveWeightMean: -0.11 }, policy)).toEqual(['weightMean']);
-    expect(failedCriteria({ ...good, adaptiveSaturations: 1 }, policy)).toEqual(['saturation']);
+    expect(failedCriteria({ ...good, adaptiveWeightSaturations: 1 }, policy)).toEqual(['saturation']);
     expect(failedCriteria({ ...good, nonFiniteSamples: 2 }, policy)).toEqual(['nonFinite']);
+    expect(failedCriteria({ ...good, outOfRangeSamples: 1 }, policy)).toEqual(['outOfRange']);
     expect(failedCriteria({ ...good, adaptiveErrorPowerDb: -40.5 }, policy)).toEqual(['margin']);
     expect(failedCriteria({ ...good, referencePowerDb: -70 }, policy)).toEqual(['referenceLevel']);
     expect(failedCriteria({ ...good, adaptiveCancellationDb: NaN }, policy)).toEqual(['cancellation']);
@@ -56,7 +58,7 @@ describe('the handoff policy (a pure function)', () => {
     expect(r.decision.outcome).toBe('idle');
     r = decide(r.state, good, policy);
     expect(r.decision.outcome).toBe('pending');
-    r = decide(r.state, { ...good, adaptiveSaturations: 3 }, policy);
+    r = decide(r.state, { ...good, adaptiveWeightSaturations: 3 }, policy);
     expect(r.decision).toMatchObject({ outcome: 'rejected', failed: ['saturation'], failures: 1, rollback: false });
   });
 

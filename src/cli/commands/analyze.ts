@@ -1,4 +1,4 @@
-import { mkdirSync, writeFileSync } from 'node:fs';
+import { writeFileSync } from 'node:fs';
 import { join } from 'node:path';
 import { CorrelationAccumulator } from '../../analysis/correlation.js';
 import { analyzeExcitation, type ExcitationAnalysis } from '../../analysis/excitation.js';
@@ -7,6 +7,7 @@ import { WelchPsd, spectrumSegment } from '../../analysis/welch.js';
 import { DEFAULT_CONFIG_PATH, loadConfig } from '../../config/load.js';
 import { INPUT_LIMIT, powerDb } from '../../dsp/level.js';
 import { TapwardenError, oneLine, quote, warningLine } from '../../errors.js';
+import { makeDirectory } from '../../io/files.js';
 import { WavReader } from '../../io/wav/reader.js';
 import { renderReport } from '../../report/html.js';
 import { framesOf, writeJsonAtomic } from '../../replay/replay.js';
@@ -120,8 +121,8 @@ Options:
     const sel = select(recording, config, taps, thresholdDb, range);
     for (const w of sel.warnings) process.stderr.write(warningLine('TW_WARN_INPUT', w) + '\n');
     const a = sel.analysis;
+    makeDirectory(outDir);
     try {
-      mkdirSync(outDir, { recursive: true });
       writeFileSync(
         join(outDir, 'report.html'),
         renderReport({
