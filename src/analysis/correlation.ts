@@ -287,3 +287,36 @@ export class CorrelationAccumulator {
     return { r: this.r.map((v) => v / n), p: this.p.map((v) => v / n), pd: this.pd / n, n: this.n };
   }
 }
+
+/**
+ * The exact sample covariance of one stretch (the covariance method): C[j][k] = sum over the
+ * stretch's n samples i of x[i-j] x[i-k], divided by n, with p[k] = sum d[i] x[i-k] / n and
+ * pd = sum d[i]^2 / n. `x` holds L-1 samples of history, then the stretch; `d` the stretch. With
+ * it, pd - 2 w'p + w'Cw is exactly the error power of the FIR w over the stretch, which the
+ * Toeplitz estimate only approximates to O(L/n).
+ */
+export function stretchCovariance(x: Float64Array, d: Float64Array, L: number): { C: Float64Array[]; p: Float64Array; pd: number } {
+  const H = L - 1;
+  const n = d.length;
+  const C = Array.from({ length: L }, () => new Float64Array(L));
+  const p = new Float64Array(L);
+  let pd = 0;
+  for (let i = 0; i < n; i++) {
+    const t = H + i;
+    pd += d[i]! * d[i]!;
+    for (let k = 0; k < L; k++) {
+      C[0]![k]! += x[t]! * x[t - k]!;
+      p[k]! += d[i]! * x[t - k]!;
+    }
+  }
+  // C[j+1][k+1] = C[j][k] + x[H-1-j] x[H-1-k] - x[H+n-1-j] x[H+n-1-k]: the stretch shifted by one.
+  for (let j = 0; j + 1 < L; j++) {
+    for (let k = j; k + 1 < L; k++) C[j + 1]![k + 1] = C[j]![k]! + x[H - 1 - j]! * x[H - 1 - k]! - x[H + n - 1 - j]! * x[H + n - 1 - k]!;
+  }
+  for (let j = 0; j < L; j++) for (let k = 0; k < j; k++) C[j]![k] = C[k]![j]!;
+  for (let j = 0; j < L; j++) {
+    for (let k = 0; k < L; k++) C[j]![k]! /= n;
+    p[j]! /= n;
+  }
+  return { C, p, pd: pd / n };
+}

@@ -27,8 +27,13 @@ export interface LeakCandidate {
   relativeBias: number;
   /** Predicted cancellation with the leaky solution, dB. */
   cancellationDb: number;
-  /** Cancellation lost against w0, dB. */
+  /** Cancellation lost against w0, dB, over the whole selection. */
   lossDb: number;
+  /**
+   * The largest loss over the selection's segments, each with its own p and w0 (a path that
+   * changes, a segment with a fault): what the suggestion is judged by.
+   */
+  worstSegmentLossDb: number;
 }
 
 export interface ExcitationAnalysis {
@@ -59,6 +64,16 @@ export interface ExcitationAnalysis {
   } | null;
 }
 
+/** The deepest cancellation a prediction reports (see `cancellation` in analyzeExcitation). */
+const MAX_PREDICTED_DB = 100;
+/** Eigenvalues below this fraction of the largest are numerically zero. */
+const NUMERICAL_RANK = 1e-12;
+
+function toeplitz(r: Float64Array): Matrix {
+  const L = r.length;
+  return new Matrix(Array.from({ length: L }, (_, i) => Array.from({ length: L }, (_, j) => r[Math.abs(i - j)]!)));
+}
+
 /** Contiguous frequency ranges where the PSD is below its peak by more than `thresholdDb`. */
 export function quietBands(frequencies: ArrayLike<number>, psd: ArrayLike<number>, thresholdDb: number): Band[] {
   let peak = 0;
@@ -85,6 +100,8 @@ export function quietBands(frequencies: ArrayLike<number>, psd: ArrayLike<number
  */
 export function analyzeExcitation(opts: {
   correlations: Correlations;
+  /** Exact covariances of stretches of the selection (supervisor windows), each judged on its own. */
+  segments?: ReadonlyArray<{ C: Float64Array[]; p: Float64Array; pd: number }>;
   withDesired: boolean;
   taps: number;
   leak: number;
@@ -97,8 +114,7 @@ export function analyzeExcitation(opts: {
 }): ExcitationAnalysis {
   const { taps: L, thresholdDb } = opts;
   const { r, p, pd } = opts.correlations;
-  const R = new Matrix(Array.from({ length: L }, (_, i) => Array.from({ length: L }, (_, j) => r[Math.abs(i - j)]!)));
-  const evd = new EigenvalueDecomposition(R, { assumeSymmetric: true });
+  const evd = new EigenvalueDecomposition(toeplitz(r), { assumeSymmetric: true });
   const order = evd.realEigenvalues.map((v, i) => [v, i] as const).sort((a, b) => b[0] - a[0]);
   const eigenvalues = order.map(([v]) => v);
   const lambdaMax = eigenvalues[0]!;
@@ -124,30 +140,69 @@ export function analyzeExcitation(opts: {
   };
   if (!opts.withDesired) return analysis;
 
-  // The solutions in the eigenbasis: q_i = u_i' p.
+  // The solutions in the eigenbasis: q_i = u_i' p, for the whole selection and each segment.
   const V = evd.eigenvectorMatrix;
-  const q = order.map(([, idx]) => {
-    let s = 0;
-    for (let i = 0; i < L; i++) s += V.get(i, idx) * p[i]!;
-    return s;
-  });
+  const project = (pv: Float64Array) =>
+    order.map(([, idx]) => {
+      let s = 0;
+      for (let i = 0; i < L; i++) s += V.get(i, idx) * pv[i]!;
+      return s;
+    });
   const tol = floor;
-  // With w = sum c_i u_i: Pe = Pd - 2 sum c_i q_i + sum c_i^2 lambda_i.
-  const errorPower = (c: number[]) => pd - c.reduce((s, ci, i) => s + 2 * ci * q[i]! - ci * ci * eigenvalues[i]!, 0);
-  const w0 = eigenvalues.map((l, i) => (l > tol ? q[i]! / l : 0));
+  /**
+   * Predicted cancellation (dB) of w = sum c_i u_i against a desired of power pd:
+   * Pe = Pd - 2 sum c_i q_i + sum c_i^2 lambda_i, floored at MAX_PREDICTED_DB below Pd (the
+   * difference of nearly equal sums is only that exact).
+   */
+  const cancellation = (q: number[], pdv: number, c: (i: number) => number) => {
+    let pe = pdv;
+    for (let i = 0; i < L; i++) pe -= 2 * c(i) * q[i]! - c(i) * c(i) * eigenvalues[i]!;
+    return powerDb(pdv) - powerDb(Math.max(pe, pdv * 10 ** (-MAX_PREDICTED_DB / 10)));
+  };
+  const unregularized = (q: number[]) => (i: number) => (eigenvalues[i]! > tol ? q[i]! / eigenvalues[i]! : 0);
+  const leaky = (q: number[], gamma: number) => (i: number) => q[i]! / (Math.max(eigenvalues[i]!, 0) + gamma);
+  const q = project(p);
+  // Each segment in its own eigenbasis: a path that changes, a reference whose spectrum moves.
+  const segments = (opts.segments ?? [])
+    .filter((g) => g.pd > 0)
+    .map((g) => {
+      const e = new EigenvalueDecomposition(new Matrix(g.C.map((row) => Array.from(row))), { assumeSymmetric: true });
+      const lambda = e.realEigenvalues;
+      const Vs = e.eigenvectorMatrix;
+      const qs = lambda.map((_, idx) => {
+        let acc = 0;
+        for (let i = 0; i < L; i++) acc += Vs.get(i, idx) * g.p[i]!;
+        return acc;
+      });
+      return { lambda, q: qs, pd: g.pd, tol: Math.max(...lambda) * NUMERICAL_RANK };
+    });
+  const w0 = eigenvalues.map((_, i) => unregularized(q)(i));
   const w0Norm = Math.sqrt(w0.reduce((s, v) => s + v * v, 0));
-  const c0 = powerDb(pd) - powerDb(errorPower(w0));
+  // The cancellation a filter can reach uses every direction it can resolve numerically, weak
+  // ones included (an adaptive filter approaches it given time); the bias above is about the
+  // excited ones.
+  const full = (i: number) => (eigenvalues[i]! > lambdaMax * NUMERICAL_RANK ? q[i]! / eigenvalues[i]! : 0);
+  const c0 = cancellation(q, pd, full);
+  /** A segment's cancellation with per-direction weights c(i) in its own eigenbasis. */
+  const segmentCancellation = (g: (typeof segments)[number], c: (i: number) => number) => {
+    let pe = g.pd;
+    for (let i = 0; i < L; i++) pe -= 2 * c(i) * g.q[i]! - c(i) * c(i) * g.lambda[i]!;
+    return powerDb(g.pd) - powerDb(Math.max(pe, g.pd * 10 ** (-MAX_PREDICTED_DB / 10)));
+  };
+  const c0s = segments.map((g) => segmentCancellation(g, (i) => (g.lambda[i]! > g.tol ? g.q[i]! / g.lambda[i]! : 0)));
   const candidates: LeakCandidate[] = [];
   for (const factor of [1e-1, 3e-2, 1e-2, 3e-3, 1e-3, 3e-4, 1e-4, 3e-5, 1e-5, 1e-6]) {
     const gamma = lambdaMax * factor;
-    const wg = eigenvalues.map((l, i) => q[i]! / (Math.max(l, 0) + gamma));
+    const wg = leaky(q, gamma);
     // The bias is measured where w0 is defined: along the excited directions.
     let bias = 0;
-    for (let i = 0; i < L; i++) if (eigenvalues[i]! > tol) bias += (wg[i]! - w0[i]!) ** 2;
-    const cg = powerDb(pd) - powerDb(errorPower(wg));
-    candidates.push({ leak: gamma, configLeak: gamma * opts.leakScale, relativeBias: Math.sqrt(bias) / (w0Norm || 1), cancellationDb: cg, lossDb: c0 - cg });
+    for (let i = 0; i < L; i++) if (eigenvalues[i]! > tol) bias += (wg(i) - w0[i]!) ** 2;
+    const cg = cancellation(q, pd, wg);
+    let worst = c0 - cg;
+    segments.forEach((g, k) => (worst = Math.max(worst, c0s[k]! - segmentCancellation(g, (i) => g.q[i]! / (Math.max(g.lambda[i]!, 0) + gamma)))));
+    candidates.push({ leak: gamma, configLeak: gamma * opts.leakScale, relativeBias: Math.sqrt(bias) / (w0Norm || 1), cancellationDb: cg, lossDb: c0 - cg, worstSegmentLossDb: worst });
   }
-  const suggested = candidates.find((c) => c.lossDb <= opts.maxLossDb) ?? null;
+  const suggested = candidates.find((c) => c.worstSegmentLossDb <= opts.maxLossDb) ?? null;
   analysis.leak = {
     current: opts.leak,
     algorithm: opts.algorithm,

@@ -1,6 +1,6 @@
 import { writeFileSync } from 'node:fs';
 import { join } from 'node:path';
-import { CorrelationAccumulator } from '../../analysis/correlation.js';
+import { CorrelationAccumulator, stretchCovariance } from '../../analysis/correlation.js';
 import { analyzeExcitation, type ExcitationAnalysis } from '../../analysis/excitation.js';
 import { DbHistogram } from '../../analysis/histogram.js';
 import { WelchPsd, spectrumSegment } from '../../analysis/welch.js';
@@ -19,8 +19,17 @@ import { seconds } from '../options.js';
 const CORRELATION_SECONDS = 60;
 /** Largest L for the eigen-decomposition (O(L^3)). */
 const MAX_TAPS = 2048;
-/** A window whose desired power is this far above the median is a fault (a loose connector, a hit) and left out of p. */
-const FAULT_DB = 20;
+/** A window whose desired power is this far above the median is a fault (a loose connector, a hit) and left out. */
+const FAULT_DB = 6;
+/**
+ * A leak is suggested only if it keeps the cancellation of every supervisor window (each its own
+ * R and p): the replay judges windows, and a leak that costs nothing on average can cost a lot in
+ * the quiet windows where cancellation is deepest. Each window costs an O(L^3) eigen-
+ * decomposition, so at most SEGMENT_WINDOWS windows, evenly spread, and only up to
+ * SEGMENT_MAX_TAPS taps; longer filters are judged over the whole selection.
+ */
+const SEGMENT_WINDOWS = 240;
+const SEGMENT_MAX_TAPS = 128;
 
 /** A sample as the engine sees it, and whether it was bad. */
 function clean(v: number): number {
@@ -64,7 +73,7 @@ function table(a: Selection['analysis'], s: Selection): string {
     for (const c of a.leak.candidates) {
       rows.push([
         `  leak ${c.leak.toExponential(2)} (filter.leak ${c.configLeak.toExponential(2)})`,
-        `bias ${(100 * c.relativeBias).toFixed(2)} %, cancellation ${c.cancellationDb.toFixed(1)} dB (loss ${c.lossDb.toFixed(2)} dB)`,
+        `bias ${(100 * c.relativeBias).toFixed(2)} %, cancellation ${c.cancellationDb.toFixed(1)} dB (loss ${c.lossDb.toFixed(2)} dB, worst window ${c.worstSegmentLossDb.toFixed(2)} dB)`,
       ]);
     }
   }
@@ -81,7 +90,9 @@ Excitation analysis of the reference channel for an N-tap filter: Welch power sp
 eigenvalues of the N x N autocorrelation matrix, their spread and how many fall below the
 threshold relative to lambda_max (directions the input does not excite); the bands with no energy;
 the LMS and NLMS step bounds; and, from the desired channel, a suggested leak with the predicted
-bias of (R + leak I)^-1 p against the unregularized solution. R and p come from up to
+bias of (R + leak I)^-1 p against the unregularized solution: the largest whose predicted loss
+is at most 0.5 dB in every supervisor window (each with its own R and p; up to ${SEGMENT_MAX_TAPS} taps).
+R and p come from up to
 ${CORRELATION_SECONDS} s of supervisor windows from --from on, leaving out windows whose desired
 power is over ${FAULT_DB} dB above the median (faults) or that hold non-finite or out-of-range samples;
 the spectrum from the whole selection. Prints a table and writes DIR/analysis.json and
@@ -200,10 +211,15 @@ function select(recording: string, config: ReturnType<typeof loadConfig>, taps: 
     const typical = median.quantile(0.5) ?? -Infinity;
     for (let w = 0; w < windows; w++) if (desiredDb[w]! > typical + FAULT_DB) faulty[w] = 1;
     const acc = new CorrelationAccumulator(taps);
+    const segments: Array<ReturnType<typeof stretchCovariance>> = [];
+    const keptWindows = Math.min(windows - faulty.reduce((a, b) => a + b, 0), Math.ceil((CORRELATION_SECONDS * rate) / win));
+    const every = Math.max(1, Math.ceil(keptWindows / SEGMENT_WINDOWS));
     const keepSamples = CORRELATION_SECONDS * rate;
     let kept = 0;
     let used = 0;
     let excluded = 0;
+    // The last taps - 1 reference samples before the current window.
+    const prev = new Float64Array(Math.max(1, taps - 1));
     reader.seek(range.from);
     for (let w = 0; w < windows && kept < keepSamples; w++) {
       const n = reader.read(channels, [x.subarray(0, Math.min(win, range.to - range.from - w * win)), d]);
@@ -213,6 +229,15 @@ function select(recording: string, config: ReturnType<typeof loadConfig>, taps: 
       }
       const keep = !faulty[w];
       acc.push(x, d, n, keep);
+      if (keep && taps <= SEGMENT_MAX_TAPS && used % every === 0 && n === win) {
+        // The window alone, its x[i-k] reaching back into the previous window.
+        const withHistory = new Float64Array(taps - 1 + n);
+        withHistory.set(prev.subarray(prev.length - (taps - 1)));
+        withHistory.set(x.subarray(0, n), taps - 1);
+        segments.push(stretchCovariance(withHistory, d.subarray(0, n), taps));
+      }
+      prev.copyWithin(0, n);
+      prev.set(x.subarray(Math.max(0, n - prev.length), n), Math.max(0, prev.length - n));
       if (keep) {
         kept += n;
         used++;
@@ -224,6 +249,7 @@ function select(recording: string, config: ReturnType<typeof loadConfig>, taps: 
     const leakScale = f.algorithm === 'lms' ? 1 : 1 / (f.delta + taps * correlations.r[0]!);
     const analysis = analyzeExcitation({
       correlations,
+      segments,
       withDesired: correlations.n > 0,
       taps,
       leak: f.leak,
