@@ -74,7 +74,7 @@ export class RealFft {
   /** spectrum[0 .. 2(N+1)) <- FFT(signal), signal of length 2N. */
   forward(signal: Float64Array, spectrum: Float64Array): void {
     this.fft.realTransform(this.out, signal);
-    spectrum.set(this.out.subarray(0, this.size + 2));
+    for (let i = 0; i < this.size + 2; i++) spectrum[i] = this.out[i]!;
   }
 
   /** signal <- the inverse FFT of the Hermitian spectrum given by bins 0..N (real). */
@@ -159,10 +159,13 @@ class PartitionedFilter {
     for (let n = start; n < end; ) {
       const f = this.fill;
       const m = Math.min(end - n, N - f);
-      y.set(this.outY.subarray(f, f + m), n);
-      e.set(this.outE.subarray(f, f + m), n);
-      this.inBuf.set(x.subarray(n, n + m), N + f);
-      this.dBuf.set(d.subarray(n, n + m), f);
+      // Copy loops, not set(subarray): this runs per call and must allocate nothing.
+      for (let j = 0; j < m; j++) {
+        y[n + j] = this.outY[f + j]!;
+        e[n + j] = this.outE[f + j]!;
+        this.inBuf[N + f + j] = x[n + j]!;
+        this.dBuf[f + j] = d[n + j]!;
+      }
       n += m;
       this.fill += m;
       if (this.fill === N) {
@@ -209,7 +212,7 @@ class PartitionedFilter {
   timeWeights(w: Float64Array = new Float64Array(this.P * this.N)): Float64Array {
     for (let p = 0; p < this.P; p++) {
       this.rfft.inverse(this.weights[p]!, this.time);
-      w.set(this.time.subarray(0, this.N), p * this.N);
+      for (let j = 0; j < this.N; j++) w[p * this.N + j] = this.time[j]!;
     }
     return w;
   }
@@ -265,6 +268,8 @@ export class FdafAdaptiveKernel implements AdaptiveKernel, BlockHandler {
   private readonly powerSum: Float64Array;
   /** The oldest spectrum in the history, saved before the next block overwrites it. */
   private readonly lastLeaving: Float64Array;
+  /** Time-domain taps for the per-window statistics. */
+  private readonly scratch: Float64Array;
   private readonly muBin: Float64Array;
   private readonly E: Float64Array;
   private readonly G: Float64Array;
@@ -283,6 +288,7 @@ export class FdafAdaptiveKernel implements AdaptiveKernel, BlockHandler {
     this.power = new Float64Array(this.pf.bins);
     this.powerSum = new Float64Array(this.pf.bins);
     this.lastLeaving = new Float64Array(2 * this.pf.bins);
+    this.scratch = new Float64Array(spec.taps);
     this.muBin = new Float64Array(this.pf.bins);
     this.E = new Float64Array(2 * this.pf.bins);
     this.G = new Float64Array(2 * this.pf.bins);
@@ -316,8 +322,10 @@ export class FdafAdaptiveKernel implements AdaptiveKernel, BlockHandler {
     } else muBin.fill(step);
     // E = FFT([0_N, e_block])
     const g = this.g;
-    g.fill(0, 0, N);
-    g.set(pf.outE, N);
+    for (let i = 0; i < N; i++) {
+      g[i] = 0;
+      g[N + i] = pf.outE[i]!;
+    }
     rfft.forward(g, this.E);
     const E = this.E;
     const G = this.G;
@@ -424,7 +432,7 @@ export class FdafAdaptiveKernel implements AdaptiveKernel, BlockHandler {
   }
 
   copyTo(fir: FirKernel): void {
-    (fir as FdafFirKernel).pf.copyWeightsFrom(this.pf);
+    (fir as FdafFirKernel).takeWeights(this.pf);
   }
 
   reset(): void {
@@ -436,15 +444,20 @@ export class FdafAdaptiveKernel implements AdaptiveKernel, BlockHandler {
   }
 
   weightStats(out: WeightStats): WeightStats {
-    return statsOf(this.pf.timeWeights(), 1, out);
+    return statsOf(this.pf.timeWeights(this.scratch), 1, out);
   }
 }
 
-/** The clean path for PBFDAF: the same partitioned convolution with fixed weights. */
+/**
+ * The clean path for PBFDAF: the same partitioned convolution with fixed weights. Its weight
+ * statistics change only when its weights do, so they are computed then, not every window.
+ */
 export class FdafFirKernel implements FirKernel, BlockHandler {
   readonly signalSaturations = 0;
   /** @internal */
   readonly pf: PartitionedFilter;
+  private readonly stats: WeightStats = { mean: 0, norm: 0, maxAbs: 0, min: 0, max: 0 };
+  private statsValid = false;
 
   /** `partner`: the adaptive path fed the same reference, whose input spectra this one reuses. */
   constructor(spec: AdaptiveSpec, opts: FdafOptions, partner?: FdafAdaptiveKernel) {
@@ -470,10 +483,18 @@ export class FdafFirKernel implements FirKernel, BlockHandler {
 
   setWeights(w: ArrayLike<number>): void {
     this.pf.setTimeWeights(w);
+    this.statsValid = false;
   }
 
   copyWeightsFrom(other: FirKernel): void {
     this.pf.copyWeightsFrom((other as FdafFirKernel).pf);
+    this.statsValid = false;
+  }
+
+  /** @internal A handoff from the adaptive path (FdafAdaptiveKernel.copyTo). */
+  takeWeights(from: PartitionedFilter): void {
+    this.pf.copyWeightsFrom(from);
+    this.statsValid = false;
   }
 
   copyHistoryFrom(other: FirKernel): void {
@@ -482,9 +503,14 @@ export class FdafFirKernel implements FirKernel, BlockHandler {
 
   reset(): void {
     this.pf.clear();
+    this.statsValid = false;
   }
 
   weightStats(out: WeightStats): WeightStats {
-    return statsOf(this.pf.timeWeights(), 1, out);
+    if (!this.statsValid) {
+      statsOf(this.pf.timeWeights(), 1, this.stats);
+      this.statsValid = true;
+    }
+    return Object.assign(out, this.stats);
   }
 }

@@ -239,14 +239,15 @@ const REPORT_SCRIPT = String.raw`
     if (a.leak) {
       s.appendChild(el('h3', {}, 'Leak candidates'));
       const lt = el('table');
-      const h = el('tr'); ['leak (re R)', 'filter.leak', 'relative bias', 'predicted cancellation', 'loss'].forEach((x) => h.appendChild(el('th', {}, x))); lt.appendChild(h);
+      const h = el('tr'); ['leak (re R)', 'filter.leak', 'relative bias', 'predicted cancellation', 'loss', 'worst window loss'].forEach((x) => h.appendChild(el('th', {}, x))); lt.appendChild(h);
       a.leak.candidates.forEach((c) => {
         const r = el('tr');
         if (c.leak === a.leak.suggested) r.className = 'suggested';
-        [c.leak.toExponential(2), c.configLeak.toExponential(2), (100 * c.relativeBias).toFixed(2) + ' %', c.cancellationDb.toFixed(1) + ' dB', c.lossDb.toFixed(2) + ' dB'].forEach((v) => r.appendChild(el('td', {}, v)));
+        [c.leak.toExponential(2), c.configLeak.toExponential(2), (100 * c.relativeBias).toFixed(2) + ' %', c.cancellationDb.toFixed(1) + ' dB', c.lossDb.toFixed(2) + ' dB', c.worstSegmentLossDb.toFixed(2) + ' dB'].forEach((v) => r.appendChild(el('td', {}, v)));
         lt.appendChild(r);
       });
       s.appendChild(lt);
+      s.appendChild(el('p', { className: 'note' }, 'Predicted from R and p over the whole selection, and window by window (each supervisor window its own exact covariance): the suggestion is the largest leak whose loss stays within ' + a.leak.maxLossDb + ' dB in every window.'));
     }
   }
 

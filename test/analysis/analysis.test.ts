@@ -1,6 +1,6 @@
 import { spawnSync } from 'node:child_process';
 import { describe, expect, it } from 'vitest';
-import { CorrelationAccumulator, autocorrelation, autocorrelationFft, toeplitzLambdaMax, type Correlations } from '../../src/analysis/correlation.js';
+import { CorrelationAccumulator, autocorrelation, autocorrelationFft, stretchCovariance, toeplitzLambdaMax, type Correlations } from '../../src/analysis/correlation.js';
 import { analyzeExcitation, quietBands } from '../../src/analysis/excitation.js';
 import { DriftForecaster, trend } from '../../src/analysis/forecast.js';
 import { DbHistogram } from '../../src/analysis/histogram.js';
@@ -230,5 +230,28 @@ describe('the one quantile function', () => {
     const r = spawnSync('python3', ['-c', script], { input: JSON.stringify(values), encoding: 'utf8' });
     const expected = JSON.parse(r.stdout) as number[];
     [0.05, 0.5, 0.95].forEach((q, i) => expect(Math.abs(h.quantile(q)! - expected[i]!)).toBeLessThanOrEqual(0.005 + 1e-9));
+  });
+});
+
+describe('the exact covariance of a stretch (the covariance method)', () => {
+  it('gives the FIR error power exactly: pd - 2 w.p + w.C.w equals the error power of w run over the stretch', () => {
+    const L = 12;
+    const x = bandLimited(3000, 0.05, 0.3, 0.2, 531);
+    const d = through([0.3, -0.1, 0.05], x, white(3000, 0.01, 532));
+    const H = L - 1;
+    const g = stretchCovariance(x.subarray(1000 - H, 2000), d.subarray(1000, 2000), L);
+    const w = Array.from({ length: L }, (_, k) => 0.2 * Math.cos(k));
+    let pe = 0;
+    for (let i = 1000; i < 2000; i++) {
+      let y = 0;
+      for (let k = 0; k < L; k++) y += w[k]! * x[i - k]!;
+      pe += (d[i]! - y) ** 2;
+    }
+    let quad = g.pd;
+    for (let j = 0; j < L; j++) {
+      quad -= 2 * w[j]! * g.p[j]!;
+      for (let k = 0; k < L; k++) quad += w[j]! * g.C[j]![k]! * w[k]!;
+    }
+    expect(Math.abs(quad - pe / 1000)).toBeLessThan(1e-12);
   });
 });

@@ -209,3 +209,20 @@ describe('pbfdaf weight limit and handoff', () => {
     });
   }
 });
+
+describe('what the normalized constrained form is', () => {
+  it('is not block LMS: the per-bin step reshapes the gradient (README says what it is)', () => {
+    const L = 64;
+    const N = 16;
+    const n = 4000;
+    const x = bandLimited(n, 0.02, 0.4, 0.3, 411);
+    const d = through(Array.from({ length: L }, (_, k) => 0.5 * 0.93 ** k * Math.cos(0.4 * k)), x, white(n, 0.01, 412));
+    const k = new FdafAdaptiveKernel(spec({ algorithm: 'pbfdaf', taps: L, step: 0.3, delta: 1e-6 }), { blockSize: N, constrained: true });
+    const y = new Float64Array(n);
+    const e = new Float64Array(n);
+    k.run(x, d, null, y, e, 0, n);
+    // Block LMS with the step that makes the first block's update the same size on average.
+    const ref = blockLms(x, d, L, N, 0.3 / ((L / 2) * 0.09));
+    expect(distance(k.getWeights(), ref.w)).toBeGreaterThan(1e-3 * norm(ref.w));
+  });
+});

@@ -89,3 +89,47 @@ describe('report.html in headless Chromium', () => {
     expect(requests).toBe(0);
   });
 });
+
+describe('the analyze report in headless Chromium', () => {
+  let browser: Browser;
+  const dir = tmpDir();
+  beforeAll(async () => {
+    cli(['demo', '--out', dir]);
+    const r = cli(['analyze', join(dir, 'bench-trial.wav'), '--out', join(dir, 'a')]);
+    expect(r.status).toBe(0);
+    browser = await chromium.launch({
+      executablePath: '/usr/bin/chromium',
+      args: ['--headless', '--no-sandbox', '--disable-gpu', '--disable-background-networking', '--disable-component-update', '--no-first-run'],
+    });
+  });
+  afterAll(async () => {
+    await browser?.close();
+  });
+
+  it('states the recording, shows no policy table, labels small eigenvalues, draws the threshold and lists the leak candidates', async () => {
+    const page = await browser.newPage({ viewport: { width: 1280, height: 900 } });
+    const errors: string[] = [];
+    page.on('console', (m) => m.type() === 'error' && errors.push(m.text()));
+    page.on('pageerror', (e) => errors.push(String(e)));
+    try {
+      await page.goto('file://' + join(dir, 'a', 'report.html'));
+      await page.waitForFunction(() => (window as any).tapwardenPlots?.length > 0);
+      expect(await page.locator('#meta').textContent()).toMatch(/^40\.0 s at 16000 Hz; tapwarden /);
+      expect(await page.locator('h2', { hasText: 'Policies' }).count()).toBe(0);
+      const eigen = await page.evaluate(() => {
+        const p = (window as any).tapwardenPlots.find((x: any) => x.title === 'Eigenvalues of R').plot;
+        return { ticks: p.axes[1].values(p, [1e-9, 1e-5, 1e-3, 0.1]), series: p.series.map((s: any) => s.label) };
+      });
+      expect(eigen.ticks).toEqual(['1e-9', '1e-5', '1e-3', '1e-1']);
+      expect(eigen.series).toContain('threshold (-60 dB)');
+      const rows = await page.locator('#analysis h3:has-text("Leak candidates") + table tr').count();
+      expect(rows).toBe(11); // a header and ten candidates
+      expect(await page.locator('tr.suggested').count()).toBe(1);
+      mkdirSync(ARTIFACTS, { recursive: true });
+      await page.screenshot({ path: join(ARTIFACTS, 'analysis.png'), fullPage: true });
+      expect(errors).toEqual([]);
+    } finally {
+      await page.close();
+    }
+  });
+});

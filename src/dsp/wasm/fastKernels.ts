@@ -1,6 +1,6 @@
 import { existsSync, readFileSync } from 'node:fs';
 import { PACKAGE_ROOT } from '../../paths.js';
-import { divRound, quantize, saturate, scaleRound, type QFormat } from '../fixed.js';
+import { quantize, saturate, scaleRound, type QFormat } from '../fixed.js';
 import { fixedConstants, formatOf } from '../fixedKernel.js';
 import { statsOf, type AdaptiveKernel, type AdaptiveSpec, type FirKernel, type WeightStats } from '../types.js';
 
@@ -26,6 +26,7 @@ interface Exports {
   f64Run(n: number, flags: number, mu: number, delta: number, leak: number, shiftc: number, lim: number): void;
   f64Flush(noise: number, lim: number): void;
   f64Rebound(): void;
+  setMeanRemoval(every: number): void;
   f64Fir(n: number): void;
   qRun(n: number, flags: number, muQ: bigint, deltaQ: bigint, lfQ: bigint, shift: number): void;
   qFlush(noise: number, shift: number): void;
@@ -49,13 +50,25 @@ export function hasFastKernel(spec: AdaptiveSpec): boolean {
   return (spec.algorithm === 'lms' || spec.algorithm === 'nlms') && spec.arithmetic !== 'float32' && fastKernelsAvailable();
 }
 
-/** One module instance laid out for an L-tap filter: weights, two delay lines, chunk buffers. */
+/**
+ * One module instance laid out for an L-tap filter: weights, two delay lines, chunk buffers. The
+ * memory never grows after construction, so the typed views over it are made once here.
+ */
 class Instance {
   readonly x: Exports;
   readonly oW = 0;
   readonly oLE: number;
   readonly oLA: number;
   readonly oIO: number;
+  /** Chunk buffers: reference, desired, noise in; estimate, error out. */
+  readonly inX: Float64Array;
+  readonly inD: Float64Array;
+  readonly inN: Float64Array;
+  readonly outY: Float64Array;
+  readonly outE: Float64Array;
+  readonly wF64: Float64Array;
+  readonly wI32: Int32Array;
+  readonly bytes: Uint8Array;
 
   constructor(readonly L: number, fixed: QFormat | null, rounding: string) {
     const mod = wasmModule();
@@ -72,22 +85,24 @@ class Instance {
     const io = (k: number) => this.oIO + k * 8 * CHUNK;
     this.x.setLayout(L, this.oW, this.oLE, this.oLA, io(0), io(1), io(2), io(3), io(4));
     if (fixed) this.x.setFormat(fixed.fracBits, rounding === 'nearest' ? 1 : 0);
+    const buf = this.x.memory.buffer;
+    [this.inX, this.inD, this.inN, this.outY, this.outE] = [0, 1, 2, 3, 4].map((k) => new Float64Array(buf, io(k), CHUNK)) as [Float64Array, Float64Array, Float64Array, Float64Array, Float64Array];
+    this.wF64 = new Float64Array(buf, this.oW, L);
+    this.wI32 = new Int32Array(buf, this.oW, L);
+    this.bytes = new Uint8Array(buf);
   }
 
-  f64(offset: number, n: number): Float64Array {
-    return new Float64Array(this.x.memory.buffer, offset, n);
+  /** Copies n samples from `src` at `from` into a chunk buffer (no views made). */
+  static load(dst: Float64Array, src: Float64Array, from: number, n: number): void {
+    for (let j = 0; j < n; j++) dst[j] = src[from + j]!;
   }
 
-  i32(offset: number, n: number): Int32Array {
-    return new Int32Array(this.x.memory.buffer, offset, n);
-  }
-
-  io(k: number, n = CHUNK): Float64Array {
-    return this.f64(this.oIO + k * 8 * CHUNK, n);
+  static store(dst: Float64Array, at: number, src: Float64Array, n: number): void {
+    for (let j = 0; j < n; j++) dst[at + j] = src[j]!;
   }
 
   clearState(): void {
-    new Uint8Array(this.x.memory.buffer, 0, this.oIO).fill(0);
+    this.bytes.fill(0, 0, this.oIO);
     this.x.reset();
   }
 }
@@ -103,7 +118,6 @@ export class WasmAdaptiveKernel implements AdaptiveKernel {
   private readonly shift: number;
   private readonly shiftc: number;
   private extraSat = 0;
-  private sinceMeanRemoval = 0;
   private noiseOn = 0;
 
   constructor(readonly spec: AdaptiveSpec) {
@@ -116,6 +130,7 @@ export class WasmAdaptiveKernel implements AdaptiveKernel {
     this.lfQ = BigInt(q.lfQ);
     this.shift = spec.leakShift ?? -1;
     this.shiftc = spec.leakShift === null ? 0 : 2 ** -spec.leakShift;
+    this.inst.x.setMeanRemoval(spec.meanRemovalEvery ?? 0);
   }
 
   get weightSaturations(): number {
@@ -128,25 +143,17 @@ export class WasmAdaptiveKernel implements AdaptiveKernel {
 
   run(x: Float64Array, d: Float64Array, noise: Float64Array | null, y: Float64Array, e: Float64Array, start: number, end: number): void {
     const { inst, spec } = this;
-    const every = spec.meanRemovalEvery;
     this.noiseOn = noise === null ? 0 : 1;
     const flags = (spec.algorithm === 'nlms' ? 1 : 0) | (noise === null ? 0 : 2) | (this.adapting ? 4 : 0);
-    let i = start;
-    while (i < end) {
-      let n = Math.min(CHUNK, end - i);
-      if (every !== null && this.adapting) n = Math.min(n, every - this.sinceMeanRemoval);
-      inst.io(0, n).set(x.subarray(i, i + n));
-      inst.io(1, n).set(d.subarray(i, i + n));
-      if (noise !== null) inst.io(2, n).set(noise.subarray(i, i + n));
+    for (let i = start; i < end; i += CHUNK) {
+      const n = Math.min(CHUNK, end - i);
+      Instance.load(inst.inX, x, i, n);
+      Instance.load(inst.inD, d, i, n);
+      if (noise !== null) Instance.load(inst.inN, noise, i, n);
       if (this.fmt === null) inst.x.f64Run(n, flags, spec.step, spec.delta, spec.leak, this.shiftc, spec.weightLimit);
       else inst.x.qRun(n, flags, this.muQ, this.deltaQ, this.lfQ, this.shift);
-      y.set(inst.io(3, n), i);
-      e.set(inst.io(4, n), i);
-      i += n;
-      if (every !== null && this.adapting && (this.sinceMeanRemoval += n) >= every) {
-        this.sinceMeanRemoval = 0;
-        this.removeMean();
-      }
+      Instance.store(y, i, inst.outY, n);
+      Instance.store(e, i, inst.outE, n);
     }
   }
 
@@ -156,25 +163,6 @@ export class WasmAdaptiveKernel implements AdaptiveKernel {
     else this.inst.x.qFlush(this.noiseOn, this.shift);
   }
 
-  private removeMean(): void {
-    this.flush();
-    const L = this.spec.taps;
-    if (this.fmt === null) {
-      const w = this.inst.f64(this.inst.oW, L);
-      let sum = 0;
-      for (let k = 0; k < L; k++) sum += w[k]!;
-      const m = sum / L;
-      for (let k = 0; k < L; k++) w[k] = w[k]! - m;
-      this.inst.x.f64Rebound();
-      return;
-    }
-    const W = this.inst.i32(this.inst.oW, L);
-    let sum = 0;
-    for (let k = 0; k < L; k++) sum += W[k]!;
-    const m = divRound(sum, L, this.spec.rounding);
-    for (let k = 0; k < L; k++) W[k] = this.clip(W[k]! - m);
-  }
-
   private clip(v: number): number {
     const s = saturate(v, this.fmt!);
     if (s !== v) this.extraSat++;
@@ -182,7 +170,7 @@ export class WasmAdaptiveKernel implements AdaptiveKernel {
   }
 
   private view(): Float64Array | Int32Array {
-    return this.fmt === null ? this.inst.f64(this.inst.oW, this.spec.taps) : this.inst.i32(this.inst.oW, this.spec.taps);
+    return this.fmt === null ? this.inst.wF64 : this.inst.wI32;
   }
 
   getWeights(): Float64Array {
@@ -212,7 +200,6 @@ export class WasmAdaptiveKernel implements AdaptiveKernel {
 
   reset(): void {
     this.inst.clearState();
-    this.sinceMeanRemoval = 0;
   }
 
   weightStats(out: WeightStats): WeightStats {
@@ -244,17 +231,17 @@ export class WasmFirKernel implements FirKernel {
     const inst = this.inst;
     for (let i = start; i < end; i += CHUNK) {
       const n = Math.min(CHUNK, end - i);
-      inst.io(0, n).set(x.subarray(i, i + n));
-      inst.io(1, n).set(d.subarray(i, i + n));
+      Instance.load(inst.inX, x, i, n);
+      Instance.load(inst.inD, d, i, n);
       if (this.fmt === null) inst.x.f64Fir(n);
       else inst.x.qFir(n);
-      y.set(inst.io(3, n), i);
-      e.set(inst.io(4, n), i);
+      Instance.store(y, i, inst.outY, n);
+      Instance.store(e, i, inst.outE, n);
     }
   }
 
   private view(): Float64Array | Int32Array {
-    return this.fmt === null ? this.inst.f64(this.inst.oW, this.spec.taps) : this.inst.i32(this.inst.oW, this.spec.taps);
+    return this.fmt === null ? this.inst.wF64 : this.inst.wI32;
   }
 
   getWeights(): Float64Array {
@@ -272,8 +259,7 @@ export class WasmFirKernel implements FirKernel {
 
   copyHistoryFrom(other: FirKernel): void {
     const src = (other as WasmFirKernel).inst;
-    const bytes = this.inst.oLA - this.inst.oLE;
-    new Uint8Array(this.inst.x.memory.buffer, this.inst.oLE, bytes).set(new Uint8Array(src.x.memory.buffer, src.oLE, bytes));
+    this.inst.bytes.set(src.bytes.subarray(src.oLE, src.oLA), this.inst.oLE);
     this.inst.x.setPosE(src.x.getPosE());
   }
 

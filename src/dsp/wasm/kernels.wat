@@ -37,6 +37,8 @@
   (global $qlf (mut i64) (i64.const 0))
   (global $energy (mut i64) (i64.const 0)) ;; fixed: Q30 reference energy
   (global $sat (mut i32) (i32.const 0))    ;; clipped signal stores, cumulative
+  (global $mrEvery (mut i32) (i32.const 0)) ;; weight-mean removal every this many adapted samples (0: never)
+  (global $mrCount (mut i32) (i32.const 0)) ;; adapted samples since the last removal
   (global $satW (mut i32) (i32.const 0))   ;; clipped weight stores, cumulative
 
   (func (export "setLayout") (param $L i32) (param $oW i32) (param $oLE i32) (param $oLA i32)
@@ -54,7 +56,8 @@
   (func (export "reset")
     (global.set $posE (i32.const 0)) (global.set $posA (i32.const 0)) (global.set $pend (i32.const 0))
     (global.set $energy (i64.const 0)) (global.set $en (f64.const 0)) (global.set $count (i32.const 0))
-    (global.set $wb (f64.const 0)) (global.set $xb (f64.const 0)))
+    (global.set $wb (f64.const 0)) (global.set $xb (f64.const 0)) (global.set $mrCount (i32.const 0)))
+  (func (export "setMeanRemoval") (param $every i32) (global.set $mrEvery (local.get $every)))
 
   ;; ---------------------------------------------------------------- float64
 
@@ -305,7 +308,8 @@
     (local.get $m))
 
   ;; Applies a pending update with the current delay line (before weights are read or changed).
-  (func (export "f64Flush") (param $noise i32) (param $lim f64)
+  (func (export "f64Flush") (param $noise i32) (param $lim f64) (call $flush64 (local.get $noise) (local.get $lim)))
+  (func $flush64 (param $noise i32) (param $lim f64)
     (if (global.get $pend) (then
       (if (i32.eqz (f64.le
             (if (result f64) (local.get $noise)
@@ -315,6 +319,24 @@
         (then (call $clamp64 (local.get $lim))))
       (global.set $wb (call $maxabs64))
       (global.set $pend (i32.const 0)))))
+
+  ;; Weight-mean removal (float64): m = sum_k w[k] / L, summed in tap order; w[k] <- w[k] - m.
+  (func $removeMean64
+    (local $k i32) (local $a i32) (local $sum f64) (local $m f64)
+    (block $done (loop $l
+      (br_if $done (i32.ge_u (local.get $k) (global.get $L)))
+      (local.set $sum (f64.add (local.get $sum) (f64.load (i32.add (global.get $oW) (i32.shl (local.get $k) (i32.const 3))))))
+      (local.set $k (i32.add (local.get $k) (i32.const 1)))
+      (br $l)))
+    (local.set $m (f64.div (local.get $sum) (f64.convert_i32_u (global.get $L))))
+    (local.set $k (i32.const 0))
+    (block $done (loop $l
+      (br_if $done (i32.ge_u (local.get $k) (global.get $L)))
+      (local.set $a (i32.add (global.get $oW) (i32.shl (local.get $k) (i32.const 3))))
+      (f64.store (local.get $a) (f64.sub (f64.load (local.get $a)) (local.get $m)))
+      (local.set $k (i32.add (local.get $k) (i32.const 1)))
+      (br $l)))
+    (global.set $wb (call $maxabs64)))
 
   ;; The NLMS energy ||x||^2 of the adaptation line, kept as a running sum and recomputed exactly
   ;; every 4096 samples (counted from reset, so the result does not depend on chunking).
@@ -392,7 +414,13 @@
         (global.set $pg (f64.mul (local.get $mun) (local.get $err)))
         ;; the leak uses the unnormalized step (bounded through silence)
         (global.set $pc (f64.add (f64.mul (local.get $mu) (local.get $leak)) (local.get $shiftc)))
-        (global.set $pend (i32.const 1))))
+        (global.set $pend (i32.const 1))
+        (if (global.get $mrEvery) (then
+          (global.set $mrCount (i32.add (global.get $mrCount) (i32.const 1)))
+          (if (i32.ge_u (global.get $mrCount) (global.get $mrEvery)) (then
+            (global.set $mrCount (i32.const 0))
+            (call $flush64 (local.get $noise) (local.get $lim))
+            (call $removeMean64)))))))
       (local.set $i (i32.add (local.get $i) (i32.const 1)))
       (br $sample))))
 
@@ -582,7 +610,34 @@
       (then (call $rnd (local.get $hi) (i64.const 15)))
       (else (call $combine (local.get $hi) (local.get $lo)))))
 
-  (func (export "qFlush") (param $noise i32) (param $shift i32)
+  ;; Weight-mean removal (fixed point): m = rnd_div(sum_k W[k], L), W[k] <- sat(W[k] - m). The
+  ;; division rounds like the reference's divRound: floor, or floor(sum / L + 1/2).
+  (func $removeMeanQ
+    (local $k i32) (local $a i32) (local $sum i64) (local $num i64) (local $den i64) (local $m i64)
+    (block $done (loop $l
+      (br_if $done (i32.ge_u (local.get $k) (global.get $L)))
+      (local.set $sum (i64.add (local.get $sum) (i64.load32_s (i32.add (global.get $oW) (i32.shl (local.get $k) (i32.const 2))))))
+      (local.set $k (i32.add (local.get $k) (i32.const 1)))
+      (br $l)))
+    ;; nearest: floor((2 sum + L) / 2L); truncate: floor(sum / L)
+    (local.set $den (i64.extend_i32_u (global.get $L)))
+    (local.set $num (local.get $sum))
+    (if (i64.ne (global.get $rn) (i64.const 0)) (then
+      (local.set $num (i64.add (i64.shl (local.get $sum) (i64.const 1)) (local.get $den)))
+      (local.set $den (i64.shl (local.get $den) (i64.const 1)))))
+    (local.set $m (i64.div_s (local.get $num) (local.get $den)))
+    (if (i32.and (i64.lt_s (local.get $num) (i64.const 0)) (i64.ne (i64.rem_s (local.get $num) (local.get $den)) (i64.const 0)))
+      (then (local.set $m (i64.sub (local.get $m) (i64.const 1)))))
+    (local.set $k (i32.const 0))
+    (block $done (loop $l
+      (br_if $done (i32.ge_u (local.get $k) (global.get $L)))
+      (local.set $a (i32.add (global.get $oW) (i32.shl (local.get $k) (i32.const 2))))
+      (i32.store (local.get $a) (i32.wrap_i64 (call $satw (i64.sub (i64.load32_s (local.get $a)) (local.get $m)))))
+      (local.set $k (i32.add (local.get $k) (i32.const 1)))
+      (br $l))))
+
+  (func (export "qFlush") (param $noise i32) (param $shift i32) (call $flushq (local.get $noise) (local.get $shift)))
+  (func $flushq (param $noise i32) (param $shift i32)
     (if (global.get $pend) (then
       (if (local.get $noise)
         (then (call $updateq (global.get $oLA) (global.get $posA) (i64.extend_i32_s (local.get $shift))))
@@ -680,7 +735,13 @@
           (if (i64.gt_s (local.get $s) (i64.const 2147483647)) (then (local.set $s (i64.const 2147483647))))))
         (global.set $qg (call $sat (call $rnd (i64.mul (local.get $s) (local.get $err)) (i64.const 16))))
         (global.set $qlf (local.get $lfQ))
-        (global.set $pend (i32.const 1))))
+        (global.set $pend (i32.const 1))
+        (if (global.get $mrEvery) (then
+          (global.set $mrCount (i32.add (global.get $mrCount) (i32.const 1)))
+          (if (i32.ge_u (global.get $mrCount) (global.get $mrEvery)) (then
+            (global.set $mrCount (i32.const 0))
+            (call $flushq (local.get $noise) (local.get $shift))
+            (call $removeMeanQ)))))))
       (local.set $i (i32.add (local.get $i) (i32.const 1)))
       (br $sample))))
 
