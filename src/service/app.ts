@@ -29,7 +29,9 @@ export function buildApp(log: Logger, plugins: readonly FastifyPluginAsync[]): F
       }
     },
   });
-  // No body, or an empty JSON body, is an empty request: control routes take either.
+  // Bodies are JSON or nothing: anything else is 415. No body, or an empty JSON body, is an
+  // empty request: control routes take either.
+  app.removeAllContentTypeParsers();
   app.addContentTypeParser('application/json', { parseAs: 'string' }, (_req, body: string, done) => {
     if (body.trim() === '') return done(null, undefined);
     try {

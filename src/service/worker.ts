@@ -32,9 +32,16 @@ const run = new Run(engineSettingsOf(config, sampleRate), config.input.desiredCh
 const engine = run.engine;
 const tickSamples = Math.max(1, Math.round(config.feed.intervalSeconds * sampleRate));
 let nextTick = tickSamples;
+/**
+ * Fault injection for the service's own tests (DEVELOPERS.md): TAPWARDEN_FAULT=engine-exit:N ends
+ * this thread after N blocks, as a crash of the engine would.
+ */
+const exitAfter = /^engine-exit:(\d+)$/.exec(process.env['TAPWARDEN_FAULT'] ?? '')?.[1];
+let blocksSeen = 0;
 
 const callbacks: SourceCallbacks = {
   block(ref, des, n) {
+    if (exitAfter !== undefined && ++blocksSeen > Number(exitAfter)) process.exit(70);
     const t0 = process.hrtime.bigint();
     run.process(ref, des, n);
     telemetry.observeBlock(Number(process.hrtime.bigint() - t0) / 1e9);

@@ -59,12 +59,15 @@ export class StatusFeed implements RunSink {
   private connected(ws: WebSocket): void {
     this.clients.set(ws, { tokens: FEED_CLIENT_BURST, last: performance.now(), refusedInARow: 0 });
     this.metrics.feedClients.set(this.wss.clients.size);
-    ws.on('close', (code) => {
-      if (code === 1009) this.metrics.feedRefused.labels('size').inc(); // RFC 6455 7.4.1: message too big
+    ws.on('close', () => {
       this.clients.delete(ws);
       this.metrics.feedClients.set(this.wss.clients.size);
     });
-    ws.on('error', () => ws.terminate());
+    ws.on('error', (err: Error & { code?: string }) => {
+      // A message over feed.maxMessageBytes: ws closes with 1009 (RFC 6455 7.4.1, message too big).
+      if (err.code === 'WS_ERR_UNSUPPORTED_MESSAGE_LENGTH') this.metrics.feedRefused.labels('size').inc();
+      ws.terminate();
+    });
     ws.on('message', (data, isBinary) => this.message(ws, data as Buffer, isBinary));
   }
 
