@@ -47,8 +47,8 @@ export class Playback implements RunSink {
   }
 
   onBlock(clean: Float64Array, _adaptive: Float64Array, n: number): void {
-    if (this.child === null) return;
-    if (this.stdin.writableLength + 2 * n > this.maxQueueBytes) {
+    // Not played (the device is gone, or too far behind): counted either way.
+    if (this.child === null || this.stdin.writableLength + 2 * n > this.maxQueueBytes) {
       this.telemetry.add('playbackDroppedBlocks', 1);
       return;
     }

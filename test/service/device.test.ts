@@ -2,9 +2,9 @@ import { execFileSync } from 'node:child_process';
 import { open, type FileHandle } from 'node:fs/promises';
 import { readFileSync, writeFileSync } from 'node:fs';
 import { join } from 'node:path';
-import { describe, expect, it } from 'vitest';
+import { afterEach, describe, expect, it } from 'vitest';
 import { WavWriter } from '../../src/io/wav/writer.js';
-import { serveWith, sleep, until } from '../helpers/serve.js';
+import { serveWith, sleep, stopAll, until } from '../helpers/serve.js';
 import { bandLimited, through, white } from '../helpers/signals.js';
 import { cli, tmpDir } from '../helpers/tools.js';
 
@@ -19,6 +19,8 @@ const BLOCK = 256;
 const FRAMES = 160 * BLOCK; // 2.56 s
 
 describe('the live path through naudiodon (PortAudio) on an ALSA file device', () => {
+  afterEach(stopAll);
+
   it("processes exactly the captured samples, and ends where a replay of them ends", async () => {
     const dir = tmpDir();
     const fifo = join(dir, 'capture.fifo');
@@ -76,6 +78,9 @@ describe('the live path through naudiodon (PortAudio) on an ALSA file device', (
       expect(live.clean).toEqual(summary.weights.clean);
       expect(live.accepted).toBe(summary.handoffs.accepted);
       expect(live.accepted).toBeGreaterThan(0);
+      // PortAudio's own status lines went to stderr (the capture runs in a child process whose
+      // stdout is the service's stderr): stdout stayed JSON lines.
+      expect(s.notJson).toEqual([]);
     } finally {
       // Close the FIFO first: a capture blocked reading an empty FIFO would hold up the exit.
       await fh.close();
@@ -139,6 +144,46 @@ describe('the live path through naudiodon (PortAudio) on an ALSA file device', (
       expect(await s.metric('tapwarden_stream_up')).toBe(0);
       expect((await s.get('/healthz')).status).toBe(200);
     } finally {
+      await s.stop();
+    }
+  });
+});
+
+describe('a playback device that stops taking data', () => {
+  afterEach(stopAll);
+
+  it('caps the queue toward it, counts the blocks it drops, and loses no input', async () => {
+    const dir = tmpDir();
+    const fifo = join(dir, 'capture.fifo');
+    const stuck = join(dir, 'stuck.fifo');
+    execFileSync('mkfifo', [fifo]);
+    execFileSync('mkfifo', [stuck]); // nobody reads it: the file plugin's writes block
+    writeFileSync(
+      join(dir, '.asoundrc'),
+      `pcm.twbench {\n  type file\n  slave.pcm "null"\n  file "${join(dir, 'unused.raw')}"\n  infile "${fifo}"\n  format "raw"\n}\n` +
+        `pcm.twstuck {\n  type file\n  slave.pcm "null"\n  file "${stuck}"\n  format "raw"\n}\n`,
+    );
+    const fh: FileHandle = await open(fifo, 'r+');
+    const s = await serveWith(
+      dir,
+      `stream:\n  source: device\n  blockFrames: ${BLOCK}\n  device:\n    input: twbench\n    playback: twstuck\n    sampleRate: ${RATE}\n    channels: 2\n`,
+      { HOME: dir },
+    );
+    try {
+      // 8 s of capture: more than the pipe and the capped queue toward the stuck device hold.
+      const frames = 4 * FRAMES;
+      const raw = Buffer.alloc(frames * 4);
+      for (let i = 0; i < frames; i++) raw.writeInt16LE(Math.round(3000 * Math.sin(i * 0.31)), i * 4);
+      for (let at = 0; at < frames; at += 2048) {
+        await fh.write(raw.subarray(at * 4, (at + 2048) * 4));
+        await sleep((1000 * 2048) / RATE / 2);
+      }
+      await until(async () => (await s.metric('tapwarden_samples_processed_total')) >= frames, 20_000, 'all samples');
+      expect(await s.metric('tapwarden_samples_processed_total')).toBe(frames);
+      expect(await s.metric('tapwarden_queue_overruns_total')).toBe(0);
+      expect(await s.metric('tapwarden_playback_dropped_blocks_total')).toBeGreaterThan(0);
+    } finally {
+      await fh.close();
       await s.stop();
     }
   });
