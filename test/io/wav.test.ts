@@ -1,4 +1,4 @@
-import { readFileSync } from 'node:fs';
+import { readFileSync, writeFileSync } from 'node:fs';
 import { join } from 'node:path';
 import { describe, expect, it } from 'vitest';
 import { TapwardenError } from '../../src/errors.js';
@@ -114,6 +114,12 @@ function chunk(id: string, body: Buffer, pad = true): Buffer {
   return Buffer.concat([h, body, pad && body.length % 2 ? Buffer.alloc(1) : Buffer.alloc(0)]);
 }
 
+function u32(v: number): Buffer {
+  const b = Buffer.alloc(4);
+  b.writeUInt32LE(v, 0);
+  return b;
+}
+
 function fmt16(channels: number, rate: number, bits: number, tag = 1): Buffer {
   const b = Buffer.alloc(16);
   b.writeUInt16LE(tag, 0);
@@ -219,8 +225,77 @@ describe('streaming', () => {
     const r = WavReader.open(file);
     const out = new Float64Array(300_000);
     expect(r.read([0], [out])).toBe(n);
-    expect(r.reads).toBe(Math.ceil(n / 8192)); // 8192-frame reads: memory does not grow with the file
+    expect(r.reads).toBe(Math.ceil((2 * n) / 2 ** 20)); // 1 MiB reads: memory does not grow with the file
     expect(out.subarray(0, n)).toEqual(x);
     r.close();
+  });
+
+  it('caps its buffer whatever the header declares: 65,535 float64 channels in a 172-byte file', () => {
+    const fmt = Buffer.alloc(16);
+    fmt.writeUInt16LE(3, 0);
+    fmt.writeUInt16LE(65535, 2);
+    fmt.writeUInt32LE(8000, 4);
+    fmt.writeUInt32LE(8000 * 65535 * 8, 8);
+    fmt.writeUInt16LE(65535 * 8 > 0xffff ? 0xffff : 65535 * 8, 12);
+    fmt.writeUInt16LE(64, 14);
+    const file = join(dir, 'wide.wav');
+    const body = Buffer.concat([Buffer.from('WAVE'), chunk('fmt ', fmt), chunk('data', Buffer.alloc(172 - 12 - 24 - 8))]);
+    const bytes = Buffer.concat([Buffer.from('RIFF'), u32(body.length), body]);
+    writeFileSync(file, bytes);
+    const before = process.memoryUsage().arrayBuffers;
+    const r = WavReader.open(file);
+    const grew = process.memoryUsage().arrayBuffers - before;
+    expect(r.frames).toBe(0);
+    expect(grew).toBeLessThan(2 * 1024 * 1024); // one frame (512 KiB) fits the 1 MiB buffer; not 4.3 GB
+    r.close();
+  });
+
+  it('a damaged fmt size does not read the file into memory', () => {
+    const file = join(dir, 'bigfmt.wav');
+    const fmt = fmt16(2, 8000, 16);
+    const data = Buffer.alloc(8 * 1024 * 1024);
+    const body = Buffer.concat([Buffer.from('WAVE'), Buffer.from('fmt '), u32(0xfffffff0), fmt, chunk('data', data)]);
+    writeFileSync(file, Buffer.concat([Buffer.from('RIFF'), u32(body.length), body]));
+    const before = process.memoryUsage().arrayBuffers;
+    let threw: unknown = null;
+    try {
+      WavReader.open(file).close();
+    } catch (err) {
+      threw = err;
+    }
+    expect(process.memoryUsage().arrayBuffers - before).toBeLessThan(4 * 1024 * 1024);
+    // The fmt chunk's claimed size swallows the data chunk: a clear error, not an 8 MB read.
+    expect(threw).toBeInstanceOf(TapwardenError);
+    expect((threw as TapwardenError).code).toBe('TW_ERR_WAV_TRUNCATED');
+  });
+});
+
+describe('RF64 past 4 GiB (EBU Tech 3306)', () => {
+  it('a file past the RIFF size limit is closed as RF64 with a ds64 chunk, and SoX and tapwarden read it back', () => {
+    // The limit is lowered so the test writes kilobytes, not 4 GiB; the layout is the same.
+    const file = join(dir, 'rf64.wav');
+    const n = 5000;
+    const x = Float64Array.from({ length: n }, (_, i) => Math.round(16000 * Math.sin(i * 0.01)) / 32768);
+    const w = new WavWriter(file, 8000, 2, 'pcm16', { rf64AboveBytes: 4000 });
+    w.write([x, x.map((v) => -v)], n);
+    w.close();
+    const b = readFileSync(file);
+    expect(b.toString('latin1', 0, 4)).toBe('RF64');
+    expect(b.readUInt32LE(4)).toBe(0xffffffff);
+    expect(b.toString('latin1', 12, 16)).toBe('ds64');
+    expect(Number(b.readBigUInt64LE(12 + 8 + 8))).toBe(n * 4); // ds64: data size
+    expect(Number(b.readBigUInt64LE(12 + 8 + 16))).toBe(n); // ds64: sample count
+    expect(sox('--i', file)).toMatch(/= 5000 samples/);
+    const back = readAll(file);
+    expect(back.channels[0]).toEqual(x);
+    expect(back.warnings).toEqual([]);
+    // Under the limit the same writer leaves a plain RIFF with a JUNK chunk where ds64 would go.
+    const small = join(dir, 'riff.wav');
+    const v = new WavWriter(small, 8000, 2, 'pcm16');
+    v.write([x, x], n);
+    v.close();
+    const c = readFileSync(small);
+    expect(c.toString('latin1', 0, 4)).toBe('RIFF');
+    expect(c.toString('latin1', 12, 16)).toBe('JUNK');
   });
 });
