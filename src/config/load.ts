@@ -1,15 +1,21 @@
-import { readFileSync } from 'node:fs';
+import { existsSync, readFileSync } from 'node:fs';
 import { fileURLToPath } from 'node:url';
-import { Ajv, type ErrorObject } from 'ajv';
+import type { ErrorObject, ValidateFunction } from 'ajv';
 import { parseDocument } from 'yaml';
 import { NLMS_STEP_BOUND, PBFDAF_STEP_BOUND } from '../dsp/bounds.js';
 import { TapwardenError, oneLine, quote, warningLine } from '../errors.js';
-import { configSchema, type Config } from './schema.js';
+import { AJV_OPTIONS, configSchema, type Config } from './schema.js';
 
 export const DEFAULT_CONFIG_PATH = fileURLToPath(new URL('../../config/default.yaml', import.meta.url));
 
-const ajv = new Ajv({ allErrors: false, strict: true, allowUnionTypes: true });
-const validate = ajv.compile<Config>(configSchema);
+/**
+ * The schema's validator: the code ajv generated for it at build time when it is there (no ajv
+ * load or schema compile at start-up), else compiled now (running from the sources).
+ */
+const GENERATED = new URL('./validator.generated.js', import.meta.url);
+const validate: ValidateFunction<Config> = existsSync(GENERATED)
+  ? ((await import(GENERATED.href)) as { default: ValidateFunction<Config> }).default
+  : new (await import('ajv')).Ajv(AJV_OPTIONS).compile<Config>(configSchema);
 
 type Plain = Record<string, unknown>;
 const isPlain = (v: unknown): v is Plain => typeof v === 'object' && v !== null && !Array.isArray(v);

@@ -57,6 +57,9 @@ const section = (properties: Record<string, unknown>) => ({
   properties,
 });
 
+/** The validator's options, shared by the build-time code generator (scripts/build-validator.mjs). */
+export const AJV_OPTIONS = { allErrors: false, strict: true, allowUnionTypes: true } as const;
+
 /** JSON Schema (draft 2020-12 subset) of the configuration; every key required after merge. */
 export const configSchema = section({
   input: section({

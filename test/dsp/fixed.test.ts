@@ -11,7 +11,7 @@ const mult = (a: number, b: number) => saturate(shiftRound(a * b, 15, 'truncate'
 const L_mult = (a: number, b: number) => saturate(2 * a * b, Q31);
 const round = (L: number) => saturate(shiftRound(L, 16, 'nearest'), Q15);
 
-describe('fixed-point primitives against the ITU-T G.191 basic-operator facts (../shared/REFERENCES.md, "Fixed point")', () => {
+describe('fixed-point primitives against the ITU-T G.191 basic-operator facts (docs/REFERENCES.md, "Fixed point")', () => {
   it('add and sub saturate to [-32768, 32767] (G.191 add, sub)', () => {
     expect(add(32767, 1)).toBe(32767);
     expect(add(-32768, -1)).toBe(-32768);
@@ -38,7 +38,7 @@ describe('fixed-point primitives against the ITU-T G.191 basic-operator facts (.
     expect(round(-0x00018000)).toBe(-1); // -98304 + 32768 = -65536 -> -1
   });
 
-  it('Q15 and Q31 ranges and LSBs (REFERENCES.md, derived)', () => {
+  it('Q15 and Q31 ranges and LSBs (docs/REFERENCES.md, derived)', () => {
     expect(Q15.max * 2 ** -15).toBe(1 - 2 ** -15);
     expect(2 ** -15).toBeCloseTo(3.0517578125e-5, 15);
     expect(2 ** -31).toBeCloseTo(4.656612873e-10, 18);

@@ -6,7 +6,7 @@ import { bandLimited, distance, norm, spec, through, white } from '../helpers/si
 
 // The leak, w <- (1 - mu gamma) w + mu_n e x, with the unnormalized step mu even in NLMS
 // (README "Leak"). With zero input the update term vanishes and w(n) = (1 - mu gamma)^n w(0)
-// (REFERENCES.md, derived from Haykin, Neural Networks and Learning Machines, 3rd ed.,
+// (docs/REFERENCES.md, derived from Haykin, Neural Networks and Learning Machines, 3rd ed.,
 // problems 3.4-3.5). Scaling the leak by the normalized step instead made (1 - mu_n gamma) go
 // below -1 as ||x||^2 -> 0: a silent reference drove the taps to the weight limit.
 

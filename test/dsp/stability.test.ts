@@ -16,7 +16,7 @@ function lambdaMaxOf(R: number[][]): number {
   return Math.max(...new EigenvalueDecomposition(new Matrix(R)).realEigenvalues);
 }
 
-describe('LMS stability bound 2/(lambda_max + gamma) (Haykin, Adaptive Filter Theory 4th ed., ch. 5; REFERENCES.md "LMS")', () => {
+describe('LMS stability bound 2/(lambda_max + gamma) (Haykin, Adaptive Filter Theory 4th ed., ch. 5; docs/REFERENCES.md "LMS")', () => {
   it("tapwarden's Toeplitz power iteration finds ml-matrix's largest eigenvalue (EigenvalueDecomposition)", () => {
     const x = ar1(60_000, 0.9, 21);
     for (const L of [8, 64]) {
@@ -97,7 +97,7 @@ describe('LMS steady-state misadjustment (Rey Vega & Rey, A Rapid Introduction t
     const trR = (L * px) / (n - from);
     const measured = mse / noise - 1;
     const exact = (mu * trR) / (2 - mu * trR);
-    expect(exact).toBeCloseTo(0.087, 2); // the worked set in REFERENCES.md (derived)
+    expect(exact).toBeCloseTo(0.087, 2); // the worked set in docs/REFERENCES.md (derived)
     expect(Math.abs(measured / exact - 1)).toBeLessThan(0.1);
     expect(Math.abs(measured / ((mu * trR) / 2) - 1)).toBeLessThan(0.2);
   });
@@ -132,7 +132,7 @@ describe('NLMS (Haykin 4th ed. ch. 6 [recalled from memory]; Slock, IEEE Trans. 
     for (const mu of [0.3, 0.6, 1.4, 1.7]) expect(t1).toBeLessThan(mean(mu));
   });
 
-  it('with mu = 1 and delta = 0 the a-posteriori error is zero (REFERENCES.md, derived)', () => {
+  it('with mu = 1 and delta = 0 the a-posteriori error is zero (docs/REFERENCES.md, derived)', () => {
     const n = 300;
     const x = white(n, 1, 61);
     const d = white(n, 1, 62); // any desired signal

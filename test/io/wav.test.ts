@@ -7,7 +7,7 @@ import { WavReader } from '../../src/io/wav/reader.js';
 import { WavWriter } from '../../src/io/wav/writer.js';
 import { sox, tmpDir } from '../helpers/tools.js';
 
-// Field layout: Microsoft WAVEFORMATEX / WAVEFORMATEXTENSIBLE documentation (REFERENCES.md "WAV").
+// Field layout: Microsoft WAVEFORMATEX / WAVEFORMATEXTENSIBLE documentation (docs/REFERENCES.md "WAV").
 // Cross-checks: SoX 14.4 (Debian package sox) writes the files, and decodes them to raw float64
 // for comparison; it also reads back what tapwarden writes.
 

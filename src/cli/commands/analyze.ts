@@ -9,7 +9,6 @@ import { INPUT_LIMIT, powerDb } from '../../dsp/level.js';
 import { TapwardenError, oneLine, quote, warningLine } from '../../errors.js';
 import { makeDirectory } from '../../io/files.js';
 import { WavReader } from '../../io/wav/reader.js';
-import { renderReport } from '../../report/html.js';
 import { framesOf, writeJsonAtomic } from '../../replay/replay.js';
 import { checkChannels } from '../../run/preflight.js';
 import type { Command } from '../command.js';
@@ -115,7 +114,7 @@ Options:
     out: { type: 'string', default: 'tapwarden-analysis' },
   },
   positionals: [1, 1],
-  run(values, positionals) {
+  async run(values, positionals) {
     const recording = positionals[0]!;
     const configFile = values['config'] as string | undefined;
     const config = loadConfig(configFile);
@@ -133,6 +132,7 @@ Options:
     for (const w of sel.warnings) process.stderr.write(warningLine('TW_WARN_INPUT', w) + '\n');
     const a = sel.analysis;
     makeDirectory(outDir);
+    const { renderReport } = await import('../../report/html.js');
     try {
       writeFileSync(
         join(outDir, 'report.html'),

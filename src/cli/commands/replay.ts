@@ -1,12 +1,8 @@
 import { basename, extname, join } from 'node:path';
 import { writeFileSync } from 'node:fs';
 import { DEFAULT_CONFIG_PATH, loadConfig } from '../../config/load.js';
-import { DEMO_RECORDING, writeDemo } from '../../demo/write.js';
 import { TapwardenError, oneLine, warningLine } from '../../errors.js';
-import { renderReport } from '../../report/html.js';
-import { figuresOf, formatComparison, worseThan } from '../../replay/compare.js';
-import { replay, writeJsonAtomic, type Policy } from '../../replay/replay.js';
-import { describeDrift, formatSummary } from '../../replay/summary.js';
+import type { Policy } from '../../replay/replay.js';
 import type { Judgement } from '../../run/summary.js';
 import type { Command } from '../command.js';
 import { seconds } from '../options.js';
@@ -53,7 +49,7 @@ Options:
     out: { type: 'string', default: 'tapwarden-out' },
   },
   positionals: [0, 1],
-  run(values, positionals) {
+  async run(values, positionals) {
     const outDir = values['out'] as string;
     const configFile = values['config'] as string | undefined;
     const policyFiles = (values['policy'] as string[] | undefined) ?? [];
@@ -81,6 +77,14 @@ Options:
         : policies.length === 1
           ? { minCancellationDb: policies[0]!.config.supervisor.minCancellationDb, source: policies[0]!.name }
           : { minCancellationDb: loadConfig(configFile).supervisor.minCancellationDb, source: configFile ?? 'the embedded default' };
+    // The engine, the report and the rest load only once the command line and configs are good.
+    const [{ DEMO_RECORDING, writeDemo }, { renderReport }, { figuresOf, formatComparison, worseThan }, { replay, writeJsonAtomic }, { describeDrift, formatSummary }] = await Promise.all([
+      import('../../demo/write.js'),
+      import('../../report/html.js'),
+      import('../../replay/compare.js'),
+      import('../../replay/replay.js'),
+      import('../../replay/summary.js'),
+    ]);
     let recording = positionals[0];
     if (recording === undefined) {
       writeDemo(outDir);

@@ -1,6 +1,5 @@
 import { DEFAULT_CONFIG_PATH, loadConfig } from '../../config/load.js';
 import { ERRORS } from '../../errors.js';
-import { startService } from '../../service/service.js';
 import type { Command } from '../command.js';
 
 export const serve: Command = {
@@ -27,6 +26,7 @@ Options:
   async run(values) {
     const configFile = values['config'] as string | undefined;
     const config = loadConfig(configFile);
+    const { startService } = await import('../../service/service.js');
     const service = await startService(config, configFile ?? DEFAULT_CONFIG_PATH);
     const code = await new Promise<number>((resolve) => {
       const stop = (reason: string, exitCode: number) => void service.stop(reason).then(() => resolve(exitCode));
