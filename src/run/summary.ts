@@ -81,8 +81,8 @@ export interface SummaryFigures {
 }
 
 export const SERIES_COLUMNS = 1000;
-export const EVENT_HEAD = 1000;
-export const EVENT_TAIL = 1000;
+export const EVENT_HEAD = 500;
+export const EVENT_TAIL = 200;
 
 const OUTCOME_RANK: Record<Outcome, number> = { accepted: 0, pending: 1, idle: 2, rejected: 3 };
 const OUTCOMES: readonly Outcome[] = ['accepted', 'pending', 'idle', 'rejected'];

@@ -42,9 +42,12 @@ describe('converged mean weights equal (R + gamma I)^-1 p (ml-matrix solve)', ()
     expect(distance(run.meanWeights, expected) / norm(expected)).toBeLessThan(0.012);
   });
 
-  it('gamma > 0 in NLMS: the mean steady state is (R + gamma I)^-1 p with mu_n = mu / (delta + ||x||^2)', () => {
-    // With NLMS the step and the leak share mu_n, so the fixed point of the mean update is still
-    // (R + gamma I)^-1 p when ||x||^2 varies little (a long filter on a stationary input).
+  it('gamma > 0 in NLMS with the unnormalized leak: the mean steady state is (R + gamma tr(R) I)^-1 p', () => {
+    // README "Leak": w <- (1 - mu gamma) w + mu e x / (delta + ||x||^2). For a spherically
+    // symmetric input vector (white Gaussian), E[x x^T / ||x||^2] = I / L exactly, so with delta
+    // negligible the mean fixed point is gamma w = (p - R w) / (L sigma^2), i.e.
+    // (R + gamma tr(R) I) w = p (derived, docs/REFERENCES.md "Leak"; independence assumption as in
+    // Haykin, Adaptive Filter Theory, ch. 6).
     const n = 200_000;
     const L = 32;
     const gamma = 0.05;
@@ -53,8 +56,11 @@ describe('converged mean weights equal (R + gamma I)^-1 p (ml-matrix solve)', ()
     const d = through(h, x, white(n, 0.01, 6));
     const run = runKernel(spec({ algorithm: 'nlms', taps: L, step: 0.1, delta: 1e-6, leak: gamma }), x, d, n / 2);
     const { R, p } = correlations(x, d, L, n / 2, n);
-    const expected = wiener(R, p, gamma);
+    const trace = R.reduce((s, row, i) => s + row[i]!, 0);
+    const expected = wiener(R, p, gamma * trace);
     expect(distance(wiener(R, p, 0), expected) / norm(expected)).toBeGreaterThan(0.2);
+    // The old normalized leak's fixed point, (R + gamma I)^-1 p, is far from this one.
+    expect(distance(wiener(R, p, gamma), expected) / norm(expected)).toBeGreaterThan(0.2);
     expect(distance(run.meanWeights, expected) / norm(expected)).toBeLessThan(0.03);
   });
 });
