@@ -1,17 +1,10 @@
 import { DelayLine } from './delayLine.js';
 import { statsOf, type AdaptiveKernel, type AdaptiveSpec, type FirKernel, type WeightStats } from './types.js';
 
-const identity = (v: number): number => v;
-
 /**
- * The floating-point reference kernels. float64 keeps everything in doubles; float32 rounds
- * every stored value (inputs, outputs, weights, step) to single precision while sums and
- * products are formed in double: the "wide accumulator" of an FPU with fused or extended
- * accumulation.
+ * The float64 reference kernels: everything in doubles. (float32, a single-precision target, has
+ * its own operator sequence in float32Kernel.ts.)
  */
-function storeFor(spec: { arithmetic: string }): (v: number) => number {
-  return spec.arithmetic === 'float32' ? Math.fround : identity;
-}
 
 export class FloatAdaptiveKernel implements AdaptiveKernel {
   adapting = true;
@@ -21,14 +14,12 @@ export class FloatAdaptiveKernel implements AdaptiveKernel {
   private readonly w: Float64Array;
   private readonly adaptLine: DelayLine<Float64Array>;
   private readonly evalLine: DelayLine<Float64Array>;
-  private readonly store: (v: number) => number;
   private sinceMeanRemoval = 0;
 
   constructor(readonly spec: AdaptiveSpec) {
     this.w = new Float64Array(spec.taps);
     this.adaptLine = new DelayLine(spec.taps, (n) => new Float64Array(n));
     this.evalLine = new DelayLine(spec.taps, (n) => new Float64Array(n));
-    this.store = storeFor(spec);
   }
 
   run(
@@ -41,30 +32,29 @@ export class FloatAdaptiveKernel implements AdaptiveKernel {
     end: number,
   ): void {
     const { taps: L, algorithm, step, delta, leak, leakShift, meanRemovalEvery, weightLimit } = this.spec;
-    const q = this.store;
     const w = this.w;
     // The leak uses the unnormalized step, so a silent reference cannot make it diverge.
-    const c = q(step * leak) + (leakShift === null ? 0 : 2 ** -leakShift);
+    const c = step * leak + (leakShift === null ? 0 : 2 ** -leakShift);
     const nlms = algorithm === 'nlms';
     for (let n = start; n < end; n++) {
-      const xn = q(x[n]!);
-      const dn = q(d[n]!);
+      const xn = x[n]!;
+      const dn = d[n]!;
       this.evalLine.push(xn);
       const ev = this.evalLine.buf;
       const ep = this.evalLine.pos;
       let line = ev;
       let p = ep;
       if (noise !== null) {
-        this.adaptLine.push(q(xn + q(noise[n]!)));
+        this.adaptLine.push(xn + noise[n]!);
         line = this.adaptLine.buf;
         p = this.adaptLine.pos;
       }
       // Output of the current weights on the un-noised reference.
       let accEval = 0;
       for (let k = 0; k < L; k++) accEval += w[k]! * ev[ep + k]!;
-      const yEval = q(accEval);
+      const yEval = accEval;
       y[n] = yEval;
-      e[n] = q(dn - yEval);
+      e[n] = dn - yEval;
       if (!this.adapting) continue;
 
       // The error the filter adapts on: on the noised reference when injecting noise.
@@ -78,13 +68,13 @@ export class FloatAdaptiveKernel implements AdaptiveKernel {
           energy += v * v;
         }
       }
-      const err = q(dn - q(acc));
+      const err = dn - acc;
       // A silent reference with delta = 0 has nothing to adapt on: no update, not 0/0.
       const norm = delta + energy;
       const mu = nlms ? (norm > 0 ? step / norm : 0) : step;
-      const g = q(mu * err);
+      const g = mu * err;
       for (let k = 0; k < L; k++) {
-        let v = q(w[k]! - c * w[k]! + g * line[p + k]!);
+        let v = w[k]! - c * w[k]! + g * line[p + k]!;
         if (!(v <= weightLimit && v >= -weightLimit)) {
           v = v > 0 ? weightLimit : v < 0 ? -weightLimit : 0;
           this.weightSaturations++;
@@ -96,7 +86,7 @@ export class FloatAdaptiveKernel implements AdaptiveKernel {
         let sum = 0;
         for (let k = 0; k < L; k++) sum += w[k]!;
         const m = sum / L;
-        for (let k = 0; k < L; k++) w[k] = q(w[k]! - m);
+        for (let k = 0; k < L; k++) w[k] = w[k]! - m;
       }
     }
   }
@@ -110,7 +100,7 @@ export class FloatAdaptiveKernel implements AdaptiveKernel {
   }
 
   setWeights(w: ArrayLike<number>): void {
-    for (let k = 0; k < this.w.length; k++) this.w[k] = this.store(w[k] ?? 0);
+    for (let k = 0; k < this.w.length; k++) this.w[k] = w[k] ?? 0;
   }
 
   copyTo(fir: FirKernel): void {
@@ -133,12 +123,10 @@ export class FloatFirKernel implements FirKernel {
   readonly signalSaturations = 0;
   private readonly w: Float64Array;
   private readonly line: DelayLine<Float64Array>;
-  private readonly store: (v: number) => number;
 
   constructor(spec: AdaptiveSpec) {
     this.w = new Float64Array(spec.taps);
     this.line = new DelayLine(spec.taps, (n) => new Float64Array(n));
-    this.store = storeFor(spec);
   }
 
   get taps(): number {
@@ -146,18 +134,17 @@ export class FloatFirKernel implements FirKernel {
   }
 
   run(x: Float64Array, d: Float64Array, y: Float64Array, e: Float64Array, start: number, end: number): void {
-    const q = this.store;
     const w = this.w;
     const L = w.length;
     for (let n = start; n < end; n++) {
-      this.line.push(q(x[n]!));
+      this.line.push(x[n]!);
       const buf = this.line.buf;
       const p = this.line.pos;
       let acc = 0;
       for (let k = 0; k < L; k++) acc += w[k]! * buf[p + k]!;
-      const yn = q(acc);
+      const yn = acc;
       y[n] = yn;
-      e[n] = q(q(d[n]!) - yn);
+      e[n] = d[n]! - yn;
     }
   }
 
@@ -166,7 +153,7 @@ export class FloatFirKernel implements FirKernel {
   }
 
   setWeights(w: ArrayLike<number>): void {
-    for (let k = 0; k < this.w.length; k++) this.w[k] = this.store(w[k] ?? 0);
+    for (let k = 0; k < this.w.length; k++) this.w[k] = w[k] ?? 0;
   }
 
   copyWeightsFrom(other: FirKernel): void {

@@ -1,5 +1,6 @@
 import { FdafAdaptiveKernel, FdafFirKernel } from './fdaf.js';
 import { FixedAdaptiveKernel, FixedFirKernel, formatOf } from './fixedKernel.js';
+import { Float32AdaptiveKernel, Float32FirKernel } from './float32Kernel.js';
 import { FloatAdaptiveKernel, FloatFirKernel } from './floatKernel.js';
 import type { AdaptiveKernel, AdaptiveSpec, FirKernel } from './types.js';
 import { WasmAdaptiveKernel, WasmFirKernel, hasFastKernel } from './wasm/fastKernels.js';
@@ -24,7 +25,8 @@ const fdafOptions = (spec: AdaptiveSpec) => ({ blockSize: spec.blockSize ?? 256,
 export function createAdaptiveKernel(spec: AdaptiveSpec, choice?: KernelChoice): AdaptiveKernel {
   if (spec.algorithm === 'pbfdaf') return new FdafAdaptiveKernel(spec, fdafOptions(spec));
   if (useFast(spec, choice)) return new WasmAdaptiveKernel(spec);
-  return isFixed(spec) ? new FixedAdaptiveKernel(spec) : new FloatAdaptiveKernel(spec);
+  if (isFixed(spec)) return new FixedAdaptiveKernel(spec);
+  return spec.arithmetic === 'float32' ? new Float32AdaptiveKernel(spec) : new FloatAdaptiveKernel(spec);
 }
 
 /**
@@ -36,7 +38,8 @@ export function createFirKernel(spec: AdaptiveSpec, choice?: KernelChoice, partn
     return new FdafFirKernel(spec, fdafOptions(spec), partner instanceof FdafAdaptiveKernel ? partner : undefined);
   }
   if (useFast(spec, choice)) return new WasmFirKernel(spec);
-  return isFixed(spec) ? new FixedFirKernel(spec) : new FloatFirKernel(spec);
+  if (isFixed(spec)) return new FixedFirKernel(spec);
+  return spec.arithmetic === 'float32' ? new Float32FirKernel(spec) : new FloatFirKernel(spec);
 }
 
 /** The largest |w| the arithmetic can store. */

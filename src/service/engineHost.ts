@@ -8,6 +8,12 @@ import type { Telemetry } from './telemetry.js';
 /** How long a request waits for the worker before it is answered with TW_ERR_ENGINE_FAILED. */
 const REQUEST_TIMEOUT_MS = 10_000;
 
+/**
+ * Fault injection for the service's own tests (DEVELOPERS.md): TAPWARDEN_FAULT=main-stall:MS
+ * blocks the main thread for MS ms at the first tick, as a flood of requests would.
+ */
+const stallMs = Number(/^main-stall:(\d+)$/.exec(process.env['TAPWARDEN_FAULT'] ?? '')?.[1] ?? 0);
+
 export interface HostCallbacks {
   /** The feed's status message is due (one per feed.intervalSeconds of stream time). */
   tick(streamSeconds: number): void;
@@ -29,6 +35,7 @@ export class EngineHost {
   private readonly sink: Required<RunSink>;
   private nextId = 1;
   private closing = false;
+  private stalled = false;
   private readonly pending = new Map<number, { resolve: (w: WeightsReply) => void; reject: (e: Error) => void; timer: NodeJS.Timeout }>();
 
   constructor(
@@ -69,6 +76,11 @@ export class EngineHost {
         this.sink.onEvent(m.event, m.weights);
         break;
       case 'tick':
+        if (stallMs > 0 && !this.stalled) {
+          this.stalled = true;
+          const until = performance.now() + stallMs;
+          while (performance.now() < until);
+        }
         this.cb.tick(m.streamSeconds);
         break;
       case 'state':

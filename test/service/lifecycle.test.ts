@@ -128,12 +128,16 @@ describe('serve lifecycle', () => {
 });
 
 describe('HTTP and feed load do not touch the input', () => {
-  it('48 kHz stereo: 20,000 pings from one feed client and 100 pipelined GET /metrics, and not a block dropped', async () => {
+  it('48 kHz stereo: 20,000 pings from one feed client, 100 pipelined GET /metrics and a 2 s main-thread stall, and not a block dropped', async () => {
     const dir = tmpDir();
     const { execFileSync } = await import('node:child_process');
     const wav = join(dir, 'stream48k.wav');
     execFileSync('sox', ['-n', '-r', '48000', '-c', '2', '-b', '16', wav, 'synth', '6', 'pinknoise', 'pinknoise', 'vol', '0.3']);
-    const s = await serveWith(dir, `stream:\n  file: ${wav}\n  loop: false\n  blockFrames: 256\nfilter:\n  taps: 256\n`);
+    // The pacer and the engine share the worker thread, so no main-thread work reaches them: the
+    // main thread also stalls for 2 s (TAPWARDEN_FAULT, DEVELOPERS.md), twice what the queue
+    // holds. The queue (192 blocks, 1 s) absorbs what the OS scheduler does to a worker on a
+    // 2-core machine that runs other test files at the same time.
+    const s = await serveWith(dir, `stream:\n  file: ${wav}\n  loop: false\n  blockFrames: 256\n  queueBlocks: 192\nfilter:\n  taps: 256\n`, { TAPWARDEN_FAULT: 'main-stall:2000' });
     const ws = new WebSocket(s.base.replace('http', 'ws') + '/api/feed');
     await new Promise((r) => ws.once('open', r));
     const ping = JSON.stringify({ type: 'ping' });
