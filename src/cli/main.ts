@@ -20,6 +20,10 @@ const COMMANDS: Record<string, { summary: string; load: () => Promise<Command> }
     summary: "analyze a recording's reference: spectrum, eigenvalues, unexcited bands, step bounds, leak",
     load: async () => (await import('./commands/analyze.js')).analyze,
   },
+  freeze: {
+    summary: 'freeze a policy for the firmware: integer settings, a C99 port, test vectors',
+    load: async () => (await import('./commands/freeze.js')).freezeCommand,
+  },
   bench: { summary: "measure the engine's throughput on this machine, beside C references", load: async () => (await import('./commands/bench.js')).bench },
 };
 
