@@ -55,6 +55,7 @@ export const ERRORS = {
   TW_ERR_NOT_READY: { message: 'the stream is not running: {reason}', exitCode: 1, httpStatus: 503 },
   TW_ERR_GATE: { message: '{detail}', exitCode: 8 },
   TW_ERR_FREEZE: { message: 'cannot freeze {file}: {detail}', exitCode: 2 },
+  TW_ERR_QUEUE: { message: 'cannot reach the queue at {url}: {reason}', exitCode: 9 },
   TW_ERR_INTERNAL: { message: 'internal error: {detail}', exitCode: 70, httpStatus: 500 },
 } as const satisfies Record<string, ErrorDef>;
 

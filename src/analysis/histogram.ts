@@ -33,3 +33,13 @@ export class DbHistogram {
     return HI;
   }
 }
+
+/**
+ * The same nearest-rank q-quantile of a short list (a sweep's figures over its recordings), exact;
+ * nulls (no figure) rank lowest. Null for an empty list.
+ */
+export function nearestRank(values: readonly (number | null)[], q: number): number | null {
+  if (values.length === 0) return null;
+  const sorted = [...values].sort((a, b) => (a ?? -Infinity) - (b ?? -Infinity));
+  return sorted[Math.max(1, Math.ceil(q * sorted.length)) - 1]!;
+}

@@ -20,6 +20,11 @@ const COMMANDS: Record<string, { summary: string; load: () => Promise<Command> }
     summary: "analyze a recording's reference: spectrum, eigenvalues, unexcited bands, step bounds, leak",
     load: async () => (await import('./commands/analyze.js')).analyze,
   },
+  sweep: {
+    summary: 'run every combination of varied settings on every recording and pick the best',
+    load: async () => (await import('./commands/sweep.js')).sweepCommand,
+  },
+  worker: { summary: "take sweep cells from a Redis queue ('tapwarden sweep --queue')", load: async () => (await import('./commands/worker.js')).workerCommand },
   freeze: {
     summary: 'freeze a policy for the firmware: integer settings, a C99 port, test vectors',
     load: async () => (await import('./commands/freeze.js')).freezeCommand,
@@ -94,7 +99,7 @@ export async function main(argv: string[]): Promise<number> {
     }
     const [min, max] = cmd.positionals;
     if (parsed.positionals.length < min || parsed.positionals.length > max) {
-      const expected = min === max ? `${min}` : `${min} to ${max}`;
+      const expected = min === max ? `${min}` : max === Infinity ? `at least ${min}` : `${min} to ${max}`;
       throw new TapwardenError('TW_ERR_USAGE', { detail: `${name}: expected ${expected} argument(s), got ${parsed.positionals.length}; ${see}` });
     }
     return await cmd.run(parsed.values, parsed.positionals);

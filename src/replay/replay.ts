@@ -38,6 +38,13 @@ export interface ReplayOptions {
   readonly range?: SecondsRange;
   readonly blockFrames?: number;
   readonly onProgress?: (framesDone: number, framesTotal: number) => void;
+  /** false: write nothing, return the summaries (sweeps keep them themselves). Default true. */
+  readonly files?: boolean;
+  /**
+   * true: a policy whose step the pre-flight check refuses is left out and reported in
+   * `refused` instead of failing the replay (a sweep cell fails, not the sweep).
+   */
+  readonly skipRefused?: boolean;
 }
 
 export interface ReplayResult {
@@ -50,6 +57,8 @@ export interface ReplayResult {
   readonly sampleRate: number;
   /** Warnings about the input and the pre-flight checks (each output's own are in its summary). */
   readonly warnings: Warning[];
+  /** With skipRefused: the policies the pre-flight checks refused, with the coded error. */
+  readonly refused: { policy: string; error: TapwardenError }[];
 }
 
 /** Frames [from, to) for a range in seconds; throws TW_ERR_USAGE for one outside the recording. */
@@ -88,11 +97,22 @@ export function replay(opts: ReplayOptions): ReplayResult {
     const range = framesOf(opts.range, reader.frames, rate, recording);
     const warnings: Warning[] = reader.warnings.map((message) => ({ code: 'TW_WARN_INPUT', message }));
     let scan: ReferenceScan | null = null;
+    const refused: ReplayResult['refused'] = [];
+    const admitted: Policy[] = [];
     for (const p of policies) {
-      if (p.config.filter.algorithm !== 'lms') continue;
-      scan ??= scanReference(reader, first.config.input.referenceChannel, range);
-      for (const message of checkLmsStep(scan, p.config, p.configFile, rate)) warnings.push({ code: 'TW_WARN_STEP', message: `${p.name}: ${message}` });
+      if (p.config.filter.algorithm === 'lms') {
+        scan ??= scanReference(reader, first.config.input.referenceChannel, range);
+        try {
+          for (const message of checkLmsStep(scan, p.config, p.configFile, rate)) warnings.push({ code: 'TW_WARN_STEP', message: `${p.name}: ${message}` });
+        } catch (err) {
+          if (!opts.skipRefused || !(err instanceof TapwardenError)) throw err;
+          refused.push({ policy: p.name, error: err });
+          continue;
+        }
+      }
+      admitted.push(p);
     }
+    const files = opts.files ?? true;
     reader.seek(range.from);
     const readsBefore = reader.reads;
     const block = opts.blockFrames ?? 4096;
@@ -100,9 +120,9 @@ export function replay(opts: ReplayOptions): ReplayResult {
     const des = new Float64Array(block);
     const psd = new WelchPsd(spectrumSegment(rate), rate);
     const total = range.to - range.from;
-    const runs = policies.map((p) => {
+    const runs = admitted.map((p) => {
       const dir = policies.length === 1 ? outDir : join(outDir, p.name);
-      makeDirectory(dir);
+      if (files) makeDirectory(dir);
       const settings = engineSettingsOf(p.config, rate);
       const windowSamples = Math.max(1, Math.round(p.config.supervisor.windowSeconds * rate));
       const summary = new SummarySink({
@@ -112,9 +132,9 @@ export function replay(opts: ReplayOptions): ReplayResult {
         meanBound: p.config.supervisor.maxWeightMean,
         expectedWindows: Math.floor(total / windowSamples),
       });
-      const log = new DecisionLog(join(dir, 'decisions.ndjson'));
-      const wavs = new WavOutputs(join(dir, 'clean.wav'), join(dir, 'adaptive.wav'), rate, p.config.output.encoding);
-      const run = new Run(settings, p.config.input.desiredChannel, [summary, log, wavs], block);
+      const log = files ? new DecisionLog(join(dir, 'decisions.ndjson')) : null;
+      const wavs = files ? new WavOutputs(join(dir, 'clean.wav'), join(dir, 'adaptive.wav'), rate, p.config.output.encoding) : null;
+      const run = new Run(settings, p.config.input.desiredChannel, log && wavs ? [summary, log, wavs] : [summary], block);
       return { p, dir, run, summary, log, wavs, engineNs: 0n };
     });
     const channels = [first.config.input.referenceChannel, first.config.input.desiredChannel];
@@ -132,8 +152,8 @@ export function replay(opts: ReplayOptions): ReplayResult {
       opts.onProgress?.(done, total);
     }
     for (const r of runs) {
-      r.wavs.close();
-      r.log.close();
+      r.wavs?.close();
+      r.log?.close();
     }
     const elapsedSeconds = Number(process.hrtime.bigint() - started) / 1e9;
     const summaries = runs.map((r) => {
@@ -145,10 +165,12 @@ export function replay(opts: ReplayOptions): ReplayResult {
       if (e.outOfRangeSamples > 0) {
         own.push({ code: 'TW_WARN_INPUT', message: `${e.outOfRangeSamples} input samples beyond +-${INPUT_LIMIT} full scale clamped to it` });
       }
-      if (r.wavs.clippedSamples > 0) {
-        own.push({ code: 'TW_WARN_OUTPUT', message: `${r.p.name}: ${r.wavs.clippedSamples} output samples clipped to full scale in the ${config.output.encoding} output files` });
+      const clippedSamples = r.wavs?.clippedSamples ?? 0;
+      const nonFiniteOut = r.wavs?.nonFiniteSamples ?? 0;
+      if (clippedSamples > 0) {
+        own.push({ code: 'TW_WARN_OUTPUT', message: `${r.p.name}: ${clippedSamples} output samples clipped to full scale in the ${config.output.encoding} output files` });
       }
-      if (r.wavs.nonFiniteSamples > 0) own.push({ code: 'TW_WARN_OUTPUT', message: `${r.p.name}: ${r.wavs.nonFiniteSamples} non-finite output samples written as 0` });
+      if (nonFiniteOut > 0) own.push({ code: 'TW_WARN_OUTPUT', message: `${r.p.name}: ${nonFiniteOut} non-finite output samples written as 0` });
       const f = r.summary.figures();
       const sat = e.saturations;
       const summary: Summary = {
@@ -186,14 +208,14 @@ export function replay(opts: ReplayOptions): ReplayResult {
           clean: 'clean.wav',
           adaptive: 'adaptive.wav',
           decisions: 'decisions.ndjson',
-          clippedSamples: r.wavs.clippedSamples,
-          nonFiniteSamples: r.wavs.nonFiniteSamples,
+          clippedSamples,
+          nonFiniteSamples: nonFiniteOut,
         },
         engineSeconds: Number(r.engineNs) / 1e9,
         elapsedSeconds,
         realtimeFactor: elapsedSeconds > 0 ? done / rate / elapsedSeconds : 0,
       };
-      writeJsonAtomic(join(r.dir, 'summary.json'), summary);
+      if (files) writeJsonAtomic(join(r.dir, 'summary.json'), summary);
       return summary;
     });
     const spectrum = psd.result();
@@ -204,6 +226,7 @@ export function replay(opts: ReplayOptions): ReplayResult {
       spectrum: { frequencies: Array.from(spectrum.frequencies), psd: Array.from(spectrum.psd) },
       sampleRate: rate,
       warnings,
+      refused,
     };
   } finally {
     reader.close();

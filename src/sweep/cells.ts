@@ -1,0 +1,76 @@
+import type { Config } from '../config/schema.js';
+import { TapwardenError, oneLine } from '../errors.js';
+import { figuresOf, type PolicyFigures } from '../replay/compare.js';
+import { replay } from '../replay/replay.js';
+import type { Summary } from '../replay/summary.js';
+import type { Judgement } from '../run/summary.js';
+import type { Scalar } from './grid.js';
+
+/**
+ * One sweep cell is one combination of parameters on one recording. Cells of the same recording
+ * travel together as a batch, so a worker decodes the recording once for all of them (replay's
+ * one-decode, many-policies loop). The same function runs in the local pool's threads and in
+ * `tapwarden worker` processes on a queue.
+ */
+
+export interface CellSpec {
+  /** The cache key: a hash of the recording's bytes, the effective config, the judgement and the version. */
+  readonly key: string;
+  readonly parameters: Readonly<Record<string, Scalar>>;
+  readonly config: Config;
+  /** The gate baseline's cell (parameters are the base config's own). */
+  readonly baseline?: boolean;
+}
+
+export interface Batch {
+  readonly recording: string;
+  readonly judge: Judgement;
+  readonly cells: readonly CellSpec[];
+}
+
+/** A cell's figures (the clean path's, as replay's comparison reports them), or its error. */
+export interface CellResult {
+  readonly key: string;
+  readonly recording: string;
+  readonly parameters: Readonly<Record<string, Scalar>>;
+  readonly baseline: boolean;
+  readonly figures: Omit<PolicyFigures, 'name' | 'judgedAt'> | null;
+  readonly error: { code: string; message: string } | null;
+}
+
+export interface BatchResult {
+  readonly results: CellResult[];
+  /** Per cell key, the full summary (written by the sweep to its cell's folder). */
+  readonly summaries: Record<string, Summary>;
+}
+
+const errorOf = (err: unknown) =>
+  err instanceof TapwardenError ? { code: err.code, message: err.message } : { code: 'TW_ERR_INTERNAL', message: oneLine(err) };
+
+export function runBatch(batch: Batch): BatchResult {
+  const base = (c: CellSpec) => ({ key: c.key, recording: batch.recording, parameters: c.parameters, baseline: c.baseline ?? false });
+  try {
+    const r = replay({
+      recording: batch.recording,
+      policies: batch.cells.map((c) => ({ name: c.key, config: c.config, configFile: `cell ${JSON.stringify(c.parameters)}` })),
+      outDir: '',
+      judge: batch.judge,
+      files: false,
+      skipRefused: true,
+    });
+    const byKey = new Map(r.summaries.map((s) => [s.policy, s]));
+    const refused = new Map(r.refused.map((x) => [x.policy, x.error]));
+    const summaries: Record<string, Summary> = {};
+    const results = batch.cells.map((c): CellResult => {
+      const s = byKey.get(c.key);
+      if (s === undefined) return { ...base(c), figures: null, error: errorOf(refused.get(c.key)) };
+      summaries[c.key] = s;
+      const { name: _name, judgedAt: _judgedAt, ...figures } = figuresOf(s);
+      return { ...base(c), figures, error: null };
+    });
+    return { results, summaries };
+  } catch (err) {
+    // The recording cannot be read (or the replay failed): every cell of it fails with the code.
+    return { results: batch.cells.map((c) => ({ ...base(c), figures: null, error: errorOf(err) })), summaries: {} };
+  }
+}
