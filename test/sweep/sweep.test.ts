@@ -71,6 +71,22 @@ describe('tapwarden sweep on the local pool', () => {
     expect(readJson(join(out, 'sweep.json')).cells).toEqual(s.cells);
   });
 
+  it("README's worked example: the pick as best.yaml, frozen with --policy, checked by gcc", () => {
+    const out = join(dir, 'local');
+    const best = readFileSync(join(out, 'best.yaml'), 'utf8');
+    const pick = readJson(join(out, 'sweep.json')).best.parameters;
+    expect(best).toContain(`step: ${pick['filter.step']}`);
+    expect(best).toContain(`leakShift: ${pick['filter.leakShift']}`);
+    const fw = join(dir, 'fw');
+    const r = cli(['freeze', '--config', base, '--policy', join(out, 'best.yaml'), recB, '--out', fw]);
+    expect(r.status, r.stderr).toBe(0);
+    const settings = readJson(join(fw, 'settings.json'));
+    expect(settings.constants.leakShift).toBe(pick['filter.leakShift']);
+    expect(settings.constants.muQ).toBe(Math.round(pick['filter.step'] * 65536));
+    tool('gcc', ['-std=c99', '-O2', '-Wall', '-Wextra', '-Werror', '-o', join(fw, 'check'), join(fw, 'check.c'), join(fw, 'tapwarden_filter.c')]);
+    expect(spawnSync(join(fw, 'check'), [join(fw, 'vectors')], { encoding: 'utf8' }).stdout).toMatch(/^ok: /);
+  });
+
   it('a recording that cannot be read fails its cells with the coded error, not the sweep', () => {
     const bad = join(dir, 'not-a-wav.wav');
     writeFileSync(bad, 'this is not audio');

@@ -5,7 +5,7 @@ import type { Command } from '../command.js';
 
 export const freezeCommand: Command = {
   summary: 'freeze a policy for the firmware: integer settings, a C99 port, test vectors',
-  usage: `Usage: tapwarden freeze --config P.yaml [REC.wav] [--vector-seconds S] --out DIR
+  usage: `Usage: tapwarden freeze --config P.yaml [--policy OVER.yaml] [REC.wav] [--vector-seconds S] --out DIR
 
 Writes what a firmware team needs to run the policy on the rig:
   DIR/settings.json          every constant in the target's integer domain, the health
@@ -19,11 +19,13 @@ Writes what a firmware team needs to run the policy on the rig:
 
 Options:
   --config FILE          the policy (YAML over config/default.yaml); lms or nlms in q15, q31 or float32
+  --policy FILE          a policy over --config (e.g. a sweep's best.yaml)
   --vector-seconds S     seconds of test vectors (default 2)
   --out DIR              output directory (default: tapwarden-firmware)
   -h, --help             this help`,
   options: {
     config: { type: 'string' },
+    policy: { type: 'string' },
     'vector-seconds': { type: 'string', default: '2' },
     out: { type: 'string', default: 'tapwarden-firmware' },
   },
@@ -36,9 +38,11 @@ Options:
     if (raw.trim() === '' || !(vectorSeconds > 0 && vectorSeconds <= 600)) {
       throw new TapwardenError('TW_ERR_USAGE', { detail: `freeze: --vector-seconds ${quote(raw)} is not allowed; allowed: seconds, 0 < S <= 600` });
     }
-    const config = loadConfig(configFile);
+    const policyFile = values['policy'] as string | undefined;
+    const config = loadConfig([configFile, policyFile].filter((f): f is string => f !== undefined));
     const { checkPortable, freeze } = await import('../../freeze/freeze.js');
-    checkPortable(config, configFile ?? DEFAULT_CONFIG_PATH);
+    const named = policyFile ?? configFile ?? DEFAULT_CONFIG_PATH;
+    checkPortable(config, named);
     const { DEMO_RECORDING, writeDemo } = await import('../../demo/write.js');
     const recording = positionals[0] ?? null;
     let vectorSource = recording;
@@ -46,7 +50,7 @@ Options:
       writeDemo(join(outDir, 'demo'));
       vectorSource = join(outDir, 'demo', DEMO_RECORDING);
     }
-    const r = freeze({ config, configFile: configFile ?? DEFAULT_CONFIG_PATH, recording, vectorSource, outDir, vectorSeconds });
+    const r = freeze({ config, configFile: named, recording, vectorSource, outDir, vectorSeconds });
     process.stdout.write(
       `frozen      ${config.filter.algorithm} ${config.filter.taps} taps ${config.filter.arithmetic}${recording ? `, clean weights reached on ${recording}` : ', zero weights'}\n` +
         `vectors     ${r.vectorSamples} samples, a handoff every ${r.handoffEvery}\n` +

@@ -79,6 +79,16 @@ Options:
       join(outDir, 'report.html'),
       renderSweepReport({ base: baseFile, recordings: positionals, axes, combinations: r.combinations, cells: r.cells, judgedAtDb: base.supervisor.minCancellationDb }),
     );
+    if (r.best !== null) {
+      // The pick as a policy file over the base config, for replay --policy and freeze --policy.
+      const nested: Record<string, Record<string, unknown>> = {};
+      for (const [k, v] of Object.entries(r.best.parameters)) {
+        const [section, key] = k.split('.') as [string, string];
+        (nested[section] ??= {})[key] = v;
+      }
+      const { stringify } = await import('yaml');
+      writeText(join(outDir, 'best.yaml'), `# The sweep's pick over ${baseFile} (tapwarden sweep, README "sweep").\n${stringify(nested)}`);
+    }
     const failed = r.cells.filter((c) => c.error !== null);
     const label = (p: Record<string, unknown>) =>
       Object.entries(p)
@@ -94,7 +104,7 @@ Options:
           .slice(0, 5)
           .map((c) => `failed      ${c.recording} ${label(c.parameters)}: ${c.error!.message} [${c.error!.code}]\n`)
           .join('') +
-        `written     ${join(outDir, 'sweep.json')}, ${join(outDir, 'report.html')}\n`,
+        `written     ${join(outDir, 'sweep.json')}, ${join(outDir, 'report.html')}${b === null ? '' : `, ${join(outDir, 'best.yaml')} (the pick as a policy)`}\n`,
     );
     if (gate !== null && b === null) {
       throw new TapwardenError('TW_ERR_GATE', { detail: `gate: every combination is worse than ${gateFile} or failed (sweep.json has the reasons)` });
