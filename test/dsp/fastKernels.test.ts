@@ -1,13 +1,16 @@
 import { describe, expect, it } from 'vitest';
 import { FixedAdaptiveKernel, FixedFirKernel } from '../../src/dsp/fixedKernel.js';
+import { Float32AdaptiveKernel, Float32FirKernel } from '../../src/dsp/float32Kernel.js';
 import { FloatAdaptiveKernel, FloatFirKernel } from '../../src/dsp/floatKernel.js';
 import type { AdaptiveKernel, AdaptiveSpec, FirKernel } from '../../src/dsp/types.js';
 import { WasmAdaptiveKernel, WasmFirKernel, fastKernelsAvailable } from '../../src/dsp/wasm/fastKernels.js';
 import { bandLimited, spec, through, white } from '../helpers/signals.js';
 
 // The fast (WebAssembly) kernels against the reference kernels, which DEVELOPERS.md defines
-// operation by operation: bit for bit in fixed point, within rounding of the dot-product order
-// in float64.
+// operation by operation: bit for bit in fixed point and float32 (each operation one binary32
+// rounding in both: Math.fround in JavaScript, f32 instructions in WebAssembly, whose
+// specification rounds every f32 result to nearest even and never fuses), within rounding of the
+// dot-product order in float64.
 
 const n = 6000;
 const x = bandLimited(n, 0.02, 0.4, 0.3, 301);
@@ -31,8 +34,10 @@ function driveFir(k: FirKernel, w: Float64Array) {
   k.setWeights(w);
   const y = new Float64Array(n);
   const e = new Float64Array(n);
-  k.run(x, d, y, e, 0, 3000);
-  k.run(x, d, y, e, 3000, n);
+  // Odd cuts: the float32 FIR filters four samples at a time and the rest one by one.
+  k.run(x, d, y, e, 0, 1);
+  k.run(x, d, y, e, 1, 2999);
+  k.run(x, d, y, e, 2999, n);
   return { y, e, sat: k.signalSaturations };
 }
 
@@ -74,6 +79,29 @@ describe('fast kernels reproduce the reference kernels', () => {
       expect(bits(firFast.y).equals(bits(firRef.y))).toBe(true);
       expect(bits(firFast.e).equals(bits(firRef.e))).toBe(true);
       expect(firFast.sat).toBe(firRef.sat);
+    });
+  }
+
+  for (const c of [
+    { algorithm: 'nlms', taps: 1, step: 0.5, delta: 1e-6 },
+    { algorithm: 'nlms', taps: 31, step: 0.5, delta: 1e-6, leak: 0.001, meanRemovalEvery: 97, noise: true },
+    { algorithm: 'lms', taps: 33, step: 0.05, leakShift: 10, meanRemovalEvery: 101 },
+    { algorithm: 'lms', taps: 8, step: 0.4, weightLimit: 0.25, noise: true },
+    { algorithm: 'nlms', taps: 16, step: 1, delta: 0 },
+  ] as Array<Partial<AdaptiveSpec> & { noise?: boolean }>) {
+    it(`float32 bit for bit: ${JSON.stringify(c)}`, () => {
+      const s = spec({ ...c, arithmetic: 'float32' });
+      const ref = drive(new Float32AdaptiveKernel(s), c.noise ?? false);
+      const fast = drive(new WasmAdaptiveKernel(s), c.noise ?? false);
+      expect(bits(fast.y).equals(bits(ref.y))).toBe(true);
+      expect(bits(fast.e).equals(bits(ref.e))).toBe(true);
+      expect(bits(fast.w).equals(bits(ref.w))).toBe(true);
+      expect(fast.sat).toEqual(ref.sat);
+      if (c.weightLimit) expect(ref.sat.weights).toBeGreaterThan(0);
+      const firRef = driveFir(new Float32FirKernel(s), ref.w.map((v) => v * 3));
+      const firFast = driveFir(new WasmFirKernel(s), ref.w.map((v) => v * 3));
+      expect(bits(firFast.y).equals(bits(firRef.y))).toBe(true);
+      expect(bits(firFast.e).equals(bits(firRef.e))).toBe(true);
     });
   }
 

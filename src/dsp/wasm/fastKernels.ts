@@ -2,12 +2,13 @@ import { existsSync, readFileSync } from 'node:fs';
 import { PACKAGE_ROOT } from '../../paths.js';
 import { quantize, saturate, scaleRound, type QFormat } from '../fixed.js';
 import { fixedConstants, formatOf } from '../fixedKernel.js';
+import { float32Constants } from '../float32Kernel.js';
 import { statsOf, type AdaptiveKernel, type AdaptiveSpec, type FirKernel, type WeightStats } from '../types.js';
 
 /**
  * The fast kernels: hand-written WebAssembly (src/dsp/wasm/kernels.wat) behind the same
- * interfaces as the reference kernels. float64 uses 128-bit SIMD; q15 and q31 use scalar 64-bit
- * integers and reproduce the reference bit for bit. Samples are copied in and out a chunk at a
+ * interfaces as the reference kernels. float64 uses 128-bit SIMD; float32 scalar f32 in tap order;
+ * q15 and q31 use scalar 64-bit integers. float32, q15 and q31 reproduce the reference bit for bit. Samples are copied in and out a chunk at a
  * time; the weights and delay lines live in the module's memory.
  */
 
@@ -28,6 +29,9 @@ interface Exports {
   f64Rebound(): void;
   setMeanRemoval(every: number): void;
   f64Fir(n: number): void;
+  f32Run(n: number, flags: number, mu: number, delta: number, c: number, lim: number): void;
+  f32Fir(n: number): void;
+  setRing32(): void;
   qRun(n: number, flags: number, muQ: bigint, deltaQ: bigint, lfQ: bigint, shift: number): void;
   qFlush(noise: number, shift: number): void;
   qFir(n: number): void;
@@ -45,9 +49,9 @@ export function fastKernelsAvailable(): boolean {
   return wasmModule() !== null;
 }
 
-/** Whether the fast kernels implement this spec: LMS and NLMS in float64, q15 and q31. */
+/** Whether the fast kernels implement this spec: LMS and NLMS in every arithmetic. */
 export function hasFastKernel(spec: AdaptiveSpec): boolean {
-  return (spec.algorithm === 'lms' || spec.algorithm === 'nlms') && spec.arithmetic !== 'float32' && fastKernelsAvailable();
+  return (spec.algorithm === 'lms' || spec.algorithm === 'nlms') && fastKernelsAvailable();
 }
 
 /**
@@ -68,14 +72,19 @@ class Instance {
   readonly outE: Float64Array;
   readonly wF64: Float64Array;
   readonly wI32: Int32Array;
+  readonly wF32: Float32Array;
   readonly bytes: Uint8Array;
 
-  constructor(readonly L: number, fixed: QFormat | null, rounding: string) {
+  /** fixed: the Q format, or null for float; single: float32 (4-byte weights and lines). */
+  constructor(readonly L: number, fixed: QFormat | null, rounding: string, single = false) {
     const mod = wasmModule();
     if (mod === null) throw new Error(`the fast kernels are not built (${WASM_FILE.pathname}); run npm run build`);
     this.x = new WebAssembly.Instance(mod).exports as unknown as Exports;
-    const wBytes = ((fixed ? 4 : 8) * L + 15) & ~15;
-    const lineBytes = ((fixed ? 4 : 8) * 2 * (L + 1) + 15) & ~15;
+    const word = fixed || single ? 4 : 8;
+    const wBytes = (word * L + 15) & ~15;
+    // Doubled rings of L + 1 samples (float64 and fixed: the fused update reads x(n-1)) or L + 3
+    // (float32: the clean FIR filters four samples at once).
+    const lineBytes = (word * 2 * (L + (single ? 3 : 1)) + 15) & ~15;
     this.oLE = wBytes;
     this.oLA = this.oLE + lineBytes;
     this.oIO = this.oLA + lineBytes;
@@ -85,10 +94,12 @@ class Instance {
     const io = (k: number) => this.oIO + k * 8 * CHUNK;
     this.x.setLayout(L, this.oW, this.oLE, this.oLA, io(0), io(1), io(2), io(3), io(4));
     if (fixed) this.x.setFormat(fixed.fracBits, rounding === 'nearest' ? 1 : 0);
+    if (single) this.x.setRing32();
     const buf = this.x.memory.buffer;
     [this.inX, this.inD, this.inN, this.outY, this.outE] = [0, 1, 2, 3, 4].map((k) => new Float64Array(buf, io(k), CHUNK)) as [Float64Array, Float64Array, Float64Array, Float64Array, Float64Array];
     this.wF64 = new Float64Array(buf, this.oW, L);
     this.wI32 = new Int32Array(buf, this.oW, L);
+    this.wF32 = new Float32Array(buf, this.oW, L);
     this.bytes = new Uint8Array(buf);
   }
 
@@ -119,10 +130,14 @@ export class WasmAdaptiveKernel implements AdaptiveKernel {
   private readonly shiftc: number;
   private extraSat = 0;
   private noiseOn = 0;
+  private readonly single: boolean;
+  private readonly f32: ReturnType<typeof float32Constants>;
 
   constructor(readonly spec: AdaptiveSpec) {
     this.fmt = formatOf(spec.arithmetic);
-    this.inst = new Instance(spec.taps, this.fmt, spec.rounding);
+    this.single = spec.arithmetic === 'float32';
+    this.f32 = float32Constants(spec);
+    this.inst = new Instance(spec.taps, this.fmt, spec.rounding, this.single);
     this.scale = this.fmt ? 2 ** -this.fmt.fracBits : 1;
     const q = this.fmt ? fixedConstants(spec, this.fmt) : { muQ: 0, deltaQ: 0, lfQ: 0 };
     this.muQ = BigInt(q.muQ);
@@ -150,7 +165,8 @@ export class WasmAdaptiveKernel implements AdaptiveKernel {
       Instance.load(inst.inX, x, i, n);
       Instance.load(inst.inD, d, i, n);
       if (noise !== null) Instance.load(inst.inN, noise, i, n);
-      if (this.fmt === null) inst.x.f64Run(n, flags, spec.step, spec.delta, spec.leak, this.shiftc, spec.weightLimit);
+      if (this.single) inst.x.f32Run(n, flags, this.f32.mu, this.f32.delta, this.f32.c, this.f32.limit);
+      else if (this.fmt === null) inst.x.f64Run(n, flags, spec.step, spec.delta, spec.leak, this.shiftc, spec.weightLimit);
       else inst.x.qRun(n, flags, this.muQ, this.deltaQ, this.lfQ, this.shift);
       Instance.store(y, i, inst.outY, n);
       Instance.store(e, i, inst.outE, n);
@@ -159,6 +175,7 @@ export class WasmAdaptiveKernel implements AdaptiveKernel {
 
   /** Applies the update still pending from the last sample. */
   private flush(): void {
+    if (this.single) return;
     if (this.fmt === null) this.inst.x.f64Flush(this.noiseOn, this.spec.weightLimit);
     else this.inst.x.qFlush(this.noiseOn, this.shift);
   }
@@ -169,8 +186,8 @@ export class WasmAdaptiveKernel implements AdaptiveKernel {
     return s;
   }
 
-  private view(): Float64Array | Int32Array {
-    return this.fmt === null ? this.inst.wF64 : this.inst.wI32;
+  private view(): Float64Array | Int32Array | Float32Array {
+    return this.single ? this.inst.wF32 : this.fmt === null ? this.inst.wF64 : this.inst.wI32;
   }
 
   getWeights(): Float64Array {
@@ -191,7 +208,7 @@ export class WasmAdaptiveKernel implements AdaptiveKernel {
     for (let k = 0; k < v.length; k++) {
       v[k] = this.fmt === null ? (w[k] ?? 0) : this.clip(scaleRound(w[k] ?? 0, this.fmt.fracBits, this.spec.rounding));
     }
-    if (this.fmt === null) this.inst.x.f64Rebound();
+    if (this.fmt === null && !this.single) this.inst.x.f64Rebound();
   }
 
   copyTo(fir: FirKernel): void {
@@ -213,9 +230,12 @@ export class WasmFirKernel implements FirKernel {
   private readonly fmt: QFormat | null;
   private readonly scale: number;
 
+  private readonly single: boolean;
+
   constructor(private readonly spec: AdaptiveSpec) {
     this.fmt = formatOf(spec.arithmetic);
-    this.inst = new Instance(spec.taps, this.fmt, spec.rounding);
+    this.single = spec.arithmetic === 'float32';
+    this.inst = new Instance(spec.taps, this.fmt, spec.rounding, this.single);
     this.scale = this.fmt ? 2 ** -this.fmt.fracBits : 1;
   }
 
@@ -233,15 +253,16 @@ export class WasmFirKernel implements FirKernel {
       const n = Math.min(CHUNK, end - i);
       Instance.load(inst.inX, x, i, n);
       Instance.load(inst.inD, d, i, n);
-      if (this.fmt === null) inst.x.f64Fir(n);
+      if (this.single) inst.x.f32Fir(n);
+      else if (this.fmt === null) inst.x.f64Fir(n);
       else inst.x.qFir(n);
       Instance.store(y, i, inst.outY, n);
       Instance.store(e, i, inst.outE, n);
     }
   }
 
-  private view(): Float64Array | Int32Array {
-    return this.fmt === null ? this.inst.wF64 : this.inst.wI32;
+  private view(): Float64Array | Int32Array | Float32Array {
+    return this.single ? this.inst.wF32 : this.fmt === null ? this.inst.wF64 : this.inst.wI32;
   }
 
   getWeights(): Float64Array {

@@ -437,6 +437,202 @@
       (local.set $i (i32.add (local.get $i) (i32.const 1)))
       (br $sample))))
 
+;; ---------------------------------------------------------------- float32
+  ;; The single-precision target of float32Kernel.ts (DEVELOPERS.md "float32 operator sequence"):
+  ;; weights and delay lines are f32, every operation is one f32 instruction (WebAssembly rounds
+  ;; each to binary32, to nearest even, and never fuses), sums run in tap order. Not fused across
+  ;; samples: the update of sample n finishes before sample n+1 is filtered.
+
+  ;; float32 delay lines are doubled rings of M32 = L + 3 samples, so the clean FIR can filter
+  ;; four samples at once (x(n+3-k) .. x(n-k) contiguous for every k).
+  (global $M32 (mut i32) (i32.const 4))
+  (func (export "setRing32") (global.set $M32 (i32.add (global.get $L) (i32.const 3))))
+
+  (func $push32f (param $o i32) (param $pos i32) (param $v f32) (result i32)
+    (local $p i32)
+    (local.set $p (select (i32.sub (global.get $M32) (i32.const 1)) (i32.sub (local.get $pos) (i32.const 1))
+                          (i32.eqz (local.get $pos))))
+    (f32.store (i32.add (local.get $o) (i32.shl (local.get $p) (i32.const 2))) (local.get $v))
+    (f32.store (i32.add (local.get $o) (i32.shl (i32.add (local.get $p) (global.get $M32)) (i32.const 2))) (local.get $v))
+    (local.get $p))
+
+  ;; The dot product and the energy of the same line in one pass (two independent f32 chains,
+  ;; each in tap order); the energy goes to $en32.
+  (global $en32 (mut f32) (f32.const 0))
+  (func $dotEnergy32f (param $o i32) (param $pos i32) (result f32)
+    (local $acc f32) (local $s f32) (local $v f32) (local $pw i32) (local $px i32) (local $end i32)
+    (local.set $pw (global.get $oW))
+    (local.set $px (i32.add (local.get $o) (i32.shl (local.get $pos) (i32.const 2))))
+    (local.set $end (i32.add (local.get $pw) (i32.shl (global.get $L) (i32.const 2))))
+    (block $done (loop $l
+      (br_if $done (i32.ge_u (local.get $pw) (local.get $end)))
+      (local.set $v (f32.load (local.get $px)))
+      (local.set $acc (f32.add (local.get $acc) (f32.mul (f32.load (local.get $pw)) (local.get $v))))
+      (local.set $s (f32.add (local.get $s) (f32.mul (local.get $v) (local.get $v))))
+      (local.set $pw (i32.add (local.get $pw) (i32.const 4)))
+      (local.set $px (i32.add (local.get $px) (i32.const 4)))
+      (br $l)))
+    (global.set $en32 (local.get $s))
+    (local.get $acc))
+
+  ;; acc = acc + w[k] x[pos + k], k = 0 .. L-1, in f32.
+  (func $dot32f (param $o i32) (param $pos i32) (result f32)
+    (local $k i32) (local $acc f32) (local $pw i32) (local $px i32) (local $end i32)
+    (local.set $pw (global.get $oW))
+    (local.set $px (i32.add (local.get $o) (i32.shl (local.get $pos) (i32.const 2))))
+    (local.set $end (i32.add (local.get $pw) (i32.shl (global.get $L) (i32.const 2))))
+    (block $done (loop $l
+      (br_if $done (i32.ge_u (local.get $pw) (local.get $end)))
+      (local.set $acc (f32.add (local.get $acc) (f32.mul (f32.load (local.get $pw)) (f32.load (local.get $px)))))
+      (local.set $pw (i32.add (local.get $pw) (i32.const 4)))
+      (local.set $px (i32.add (local.get $px) (i32.const 4)))
+      (br $l)))
+    (local.get $acc))
+
+  ;; w <- (w - c w) + g x[pos + k], stored as +-lim (0 for NaN) and counted when outside [-lim, lim].
+  (func $update32f (param $o i32) (param $pos i32) (param $g f32) (param $c f32) (param $lim f32)
+    (local $pw i32) (local $px i32) (local $end i32) (local $end4 i32) (local $w f32) (local $v f32)
+    (local $vg v128) (local $vc v128) (local $vl v128) (local $vn v128) (local $vw v128) (local $vv v128)
+    (local.set $pw (global.get $oW))
+    (local.set $px (i32.add (local.get $o) (i32.shl (local.get $pos) (i32.const 2))))
+    (local.set $end (i32.add (local.get $pw) (i32.shl (global.get $L) (i32.const 2))))
+    ;; four taps at a time (lane-wise f32: the same roundings); a group with a lane out of range
+    ;; is redone one tap at a time below
+    (local.set $vg (f32x4.splat (local.get $g)))
+    (local.set $vc (f32x4.splat (local.get $c)))
+    (local.set $vl (f32x4.splat (local.get $lim)))
+    (local.set $vn (f32x4.splat (f32.neg (local.get $lim))))
+    (local.set $end4 (i32.add (local.get $pw) (i32.shl (i32.and (global.get $L) (i32.const -4)) (i32.const 2))))
+    (block $done4 (loop $l4
+      (br_if $done4 (i32.ge_u (local.get $pw) (local.get $end4)))
+      (local.set $vw (v128.load (local.get $pw)))
+      (local.set $vv (f32x4.add (f32x4.sub (local.get $vw) (f32x4.mul (local.get $vc) (local.get $vw)))
+                                (f32x4.mul (local.get $vg) (v128.load (local.get $px)))))
+      (br_if $done4 (i32.eqz (i32x4.all_true (v128.and (f32x4.le (local.get $vv) (local.get $vl)) (f32x4.ge (local.get $vv) (local.get $vn))))))
+      (v128.store (local.get $pw) (local.get $vv))
+      (local.set $pw (i32.add (local.get $pw) (i32.const 16)))
+      (local.set $px (i32.add (local.get $px) (i32.const 16)))
+      (br $l4)))
+    (block $done (loop $l
+      (br_if $done (i32.ge_u (local.get $pw) (local.get $end)))
+      (local.set $w (f32.load (local.get $pw)))
+      (local.set $v (f32.add (f32.sub (local.get $w) (f32.mul (local.get $c) (local.get $w)))
+                             (f32.mul (local.get $g) (f32.load (local.get $px)))))
+      (if (i32.eqz (i32.and (f32.le (local.get $v) (local.get $lim)) (f32.ge (local.get $v) (f32.neg (local.get $lim)))))
+        (then
+          (local.set $v (select (local.get $lim)
+                          (select (f32.neg (local.get $lim)) (f32.const 0) (f32.lt (local.get $v) (f32.const 0)))
+                          (f32.gt (local.get $v) (f32.const 0))))
+          (global.set $satW (i32.add (global.get $satW) (i32.const 1)))))
+      (f32.store (local.get $pw) (local.get $v))
+      (local.set $pw (i32.add (local.get $pw) (i32.const 4)))
+      (local.set $px (i32.add (local.get $px) (i32.const 4)))
+      (br $l)))) 
+
+  ;; Weight-mean removal: S = sum in tap order, m = S / L, w <- w - m (all f32).
+  (func $removeMean32f
+    (local $k i32) (local $a i32) (local $sum f32) (local $m f32)
+    (block $done (loop $l
+      (br_if $done (i32.ge_u (local.get $k) (global.get $L)))
+      (local.set $sum (f32.add (local.get $sum) (f32.load (i32.add (global.get $oW) (i32.shl (local.get $k) (i32.const 2))))))
+      (local.set $k (i32.add (local.get $k) (i32.const 1)))
+      (br $l)))
+    (local.set $m (f32.div (local.get $sum) (f32.convert_i32_u (global.get $L))))
+    (local.set $k (i32.const 0))
+    (block $done (loop $l
+      (br_if $done (i32.ge_u (local.get $k) (global.get $L)))
+      (local.set $a (i32.add (global.get $oW) (i32.shl (local.get $k) (i32.const 2))))
+      (f32.store (local.get $a) (f32.sub (f32.load (local.get $a)) (local.get $m)))
+      (local.set $k (i32.add (local.get $k) (i32.const 1)))
+      (br $l))))
+
+  ;; n samples of the float32 LMS/NLMS adaptive path. flags: 1 nlms, 2 noise, 4 adapting.
+  ;; mu, delta, c (the leak factor) and lim are binary32 already (float32Constants).
+  (func (export "f32Run") (param $n i32) (param $flags i32) (param $mu f32) (param $delta f32) (param $c f32) (param $lim f32)
+    (local $i i32) (local $i8 i32) (local $noise i32) (local $oU i32) (local $posU i32)
+    (local $xe f32) (local $d f32) (local $yE f32) (local $e f32) (local $err f32) (local $st f32) (local $norm f32)
+    (local.set $noise (i32.and (local.get $flags) (i32.const 2)))
+    (local.set $oU (select (global.get $oLA) (global.get $oLE) (local.get $noise)))
+    (block $end (loop $sample
+      (br_if $end (i32.ge_u (local.get $i) (local.get $n)))
+      (local.set $i8 (i32.shl (local.get $i) (i32.const 3)))
+      (local.set $d (f32.demote_f64 (f64.load (i32.add (global.get $oD) (local.get $i8)))))
+      (local.set $xe (f32.demote_f64 (f64.load (i32.add (global.get $oX) (local.get $i8)))))
+      (global.set $posE (call $push32f (global.get $oLE) (global.get $posE) (local.get $xe)))
+      (if (local.get $noise) (then
+        (global.set $posA (call $push32f (global.get $oLA) (global.get $posA)
+          (f32.add (local.get $xe) (f32.demote_f64 (f64.load (i32.add (global.get $oN) (local.get $i8)))))))))
+      (local.set $posU (select (global.get $posA) (global.get $posE) (local.get $noise)))
+      (local.set $yE (if (result f32) (i32.and (local.get $flags) (i32.const 1))
+        (then (call $dotEnergy32f (global.get $oLE) (global.get $posE)))
+        (else (call $dot32f (global.get $oLE) (global.get $posE)))))
+      (local.set $e (f32.sub (local.get $d) (local.get $yE)))
+      (f64.store (i32.add (global.get $oY) (local.get $i8)) (f64.promote_f32 (local.get $yE)))
+      (f64.store (i32.add (global.get $oE) (local.get $i8)) (f64.promote_f32 (local.get $e)))
+      (if (i32.and (local.get $flags) (i32.const 4)) (then
+        (local.set $err (local.get $e))
+        (if (local.get $noise) (then (local.set $err (f32.sub (local.get $d) (call $dotEnergy32f (global.get $oLA) (global.get $posA))))))
+        (local.set $st (local.get $mu))
+        (if (i32.and (local.get $flags) (i32.const 1)) (then
+          (local.set $norm (f32.add (local.get $delta) (global.get $en32)))
+          (local.set $st (select (f32.div (local.get $mu) (local.get $norm)) (f32.const 0) (f32.gt (local.get $norm) (f32.const 0))))))
+        (call $update32f (local.get $oU) (local.get $posU) (f32.mul (local.get $st) (local.get $err)) (local.get $c) (local.get $lim))
+        (if (global.get $mrEvery) (then
+          (global.set $mrCount (i32.add (global.get $mrCount) (i32.const 1)))
+          (if (i32.ge_u (global.get $mrCount) (global.get $mrEvery)) (then
+            (global.set $mrCount (i32.const 0))
+            (call $removeMean32f)))))))
+      (local.set $i (i32.add (local.get $i) (i32.const 1)))
+      (br $sample))))
+
+  (func $fir32out (param $i i32) (param $y f32)
+    (local $i8 i32)
+    (local.set $i8 (i32.shl (local.get $i) (i32.const 3)))
+    (f64.store (i32.add (global.get $oY) (local.get $i8)) (f64.promote_f32 (local.get $y)))
+    (f64.store (i32.add (global.get $oE) (local.get $i8))
+      (f64.promote_f32 (f32.sub (f32.demote_f64 (f64.load (i32.add (global.get $oD) (local.get $i8)))) (local.get $y)))))
+
+  ;; n samples of a fixed-weight float32 FIR: y = w . x in tap order, e = d - y. Four samples at a
+  ;; time, one per lane, each lane its own tap-order chain (so the result is the scalar one).
+  (func (export "f32Fir") (param $n i32)
+    (local $i i32) (local $i8 i32) (local $y f32) (local $j i32) (local $acc v128) (local $pw i32) (local $px i32) (local $end i32)
+    (local.set $end (i32.add (global.get $oW) (i32.shl (global.get $L) (i32.const 2))))
+    (block $end4 (loop $group
+      (br_if $end4 (i32.gt_u (i32.add (local.get $i) (i32.const 4)) (local.get $n)))
+      (local.set $j (i32.const 0))
+      (block $pushed (loop $push
+        (br_if $pushed (i32.ge_u (local.get $j) (i32.const 4)))
+        (global.set $posE (call $push32f (global.get $oLE) (global.get $posE)
+          (f32.demote_f64 (f64.load (i32.add (global.get $oX) (i32.shl (i32.add (local.get $i) (local.get $j)) (i32.const 3)))))))
+        (local.set $j (i32.add (local.get $j) (i32.const 1)))
+        (br $push)))
+      ;; lane 0 is sample i+3 (the newest), lane 3 sample i
+      (local.set $acc (v128.const f32x4 0 0 0 0))
+      (local.set $pw (global.get $oW))
+      (local.set $px (i32.add (global.get $oLE) (i32.shl (global.get $posE) (i32.const 2))))
+      (block $done (loop $tap
+        (br_if $done (i32.ge_u (local.get $pw) (local.get $end)))
+        (local.set $acc (f32x4.add (local.get $acc) (f32x4.mul (f32x4.splat (f32.load (local.get $pw))) (v128.load (local.get $px)))))
+        (local.set $pw (i32.add (local.get $pw) (i32.const 4)))
+        (local.set $px (i32.add (local.get $px) (i32.const 4)))
+        (br $tap)))
+      (call $fir32out (local.get $i) (f32x4.extract_lane 3 (local.get $acc)))
+      (call $fir32out (i32.add (local.get $i) (i32.const 1)) (f32x4.extract_lane 2 (local.get $acc)))
+      (call $fir32out (i32.add (local.get $i) (i32.const 2)) (f32x4.extract_lane 1 (local.get $acc)))
+      (call $fir32out (i32.add (local.get $i) (i32.const 3)) (f32x4.extract_lane 0 (local.get $acc)))
+      (local.set $i (i32.add (local.get $i) (i32.const 4)))
+      (br $group)))
+    (block $end (loop $sample
+      (br_if $end (i32.ge_u (local.get $i) (local.get $n)))
+      (local.set $i8 (i32.shl (local.get $i) (i32.const 3)))
+      (global.set $posE (call $push32f (global.get $oLE) (global.get $posE) (f32.demote_f64 (f64.load (i32.add (global.get $oX) (local.get $i8))))))
+      (local.set $y (call $dot32f (global.get $oLE) (global.get $posE)))
+      (f64.store (i32.add (global.get $oY) (local.get $i8)) (f64.promote_f32 (local.get $y)))
+      (f64.store (i32.add (global.get $oE) (local.get $i8))
+        (f64.promote_f32 (f32.sub (f32.demote_f64 (f64.load (i32.add (global.get $oD) (local.get $i8)))) (local.get $y))))
+      (local.set $i (i32.add (local.get $i) (i32.const 1)))
+      (br $sample))))
+
   ;; ---------------------------------------------------------------- fixed point (q15, q31)
   ;; Integers in i64 registers; weights and delay lines stored as i32. $f is 15 or 31, $rn is 1
   ;; for round-to-nearest and 0 for truncation (toward minus infinity, as i64.shr_s does).
