@@ -73,3 +73,127 @@ export class WelchPsd {
     return { frequencies, psd };
   }
 }
+
+/**
+ * Welch estimates of two signals' auto- and cross-spectra over the same segments as WelchPsd
+ * (periodic Hann, 50 % overlap, no detrending), and their magnitude-squared coherence
+ * C(f) = |Sxy|^2 / (Sxx Syy) (Bendat & Piersol, Random Data, 4th ed., section 5.2.5 and 9.2.3;
+ * scipy.signal.coherence computes the same with detrend=False). 1 - C(f) is the smallest share of
+ * the measurement's power at f that any linear time-invariant filter of the reference can leave,
+ * so -10 log10(1 - C) bounds the cancellation there (Bendat & Piersol, section 6.1.4).
+ */
+export class WelchCross {
+  private readonly fft: FFT;
+  private readonly window: Float64Array;
+  private readonly segX: Float64Array;
+  private readonly segY: Float64Array;
+  private readonly frame: Float64Array;
+  private readonly specX: Float64Array;
+  private readonly specY: Float64Array;
+  private readonly sxx: Float64Array;
+  private readonly syy: Float64Array;
+  private readonly sxyRe: Float64Array;
+  private readonly sxyIm: Float64Array;
+  private fill = 0;
+  segments = 0;
+
+  constructor(
+    readonly segmentLength: number,
+    readonly sampleRate: number,
+  ) {
+    const N = segmentLength;
+    this.fft = new FFT(N);
+    this.window = Float64Array.from({ length: N }, (_, i) => 0.5 - 0.5 * Math.cos((2 * Math.PI * i) / N));
+    this.segX = new Float64Array(N);
+    this.segY = new Float64Array(N);
+    this.frame = new Float64Array(N);
+    this.specX = new Float64Array(2 * N);
+    this.specY = new Float64Array(2 * N);
+    const bins = N / 2 + 1;
+    this.sxx = new Float64Array(bins);
+    this.syy = new Float64Array(bins);
+    this.sxyRe = new Float64Array(bins);
+    this.sxyIm = new Float64Array(bins);
+  }
+
+  /** Appends n samples of both signals (non-finite samples count as 0). */
+  push(x: Float64Array, y: Float64Array, n: number): void {
+    const N = this.segmentLength;
+    for (let i = 0; i < n; i++) {
+      const a = x[i]!;
+      const b = y[i]!;
+      this.segX[this.fill] = Number.isFinite(a) ? a : 0;
+      this.segY[this.fill++] = Number.isFinite(b) ? b : 0;
+      if (this.fill === N) {
+        this.accumulate();
+        this.segX.copyWithin(0, N / 2);
+        this.segY.copyWithin(0, N / 2);
+        this.fill = N / 2;
+      }
+    }
+  }
+
+  private accumulate(): void {
+    const N = this.segmentLength;
+    for (let i = 0; i < N; i++) this.frame[i] = this.segX[i]! * this.window[i]!;
+    this.fft.realTransform(this.specX, this.frame);
+    for (let i = 0; i < N; i++) this.frame[i] = this.segY[i]! * this.window[i]!;
+    this.fft.realTransform(this.specY, this.frame);
+    for (let k = 0; k <= N / 2; k++) {
+      const xr = this.specX[2 * k]!;
+      const xi = this.specX[2 * k + 1]!;
+      const yr = this.specY[2 * k]!;
+      const yi = this.specY[2 * k + 1]!;
+      this.sxx[k]! += xr * xr + xi * xi;
+      this.syy[k]! += yr * yr + yi * yi;
+      // conj(X) Y
+      this.sxyRe[k]! += xr * yr + xi * yi;
+      this.sxyIm[k]! += xr * yi - xi * yr;
+    }
+    this.segments++;
+  }
+
+  /** Frequencies (Hz), the measurement's spectrum Syy (relative units) and the coherence per bin. */
+  result(): { frequencies: Float64Array; syy: Float64Array; coherence: Float64Array } {
+    const N = this.segmentLength;
+    const bins = N / 2 + 1;
+    const frequencies = Float64Array.from({ length: bins }, (_, k) => (k * this.sampleRate) / N);
+    const coherence = new Float64Array(bins);
+    for (let k = 0; k < bins; k++) {
+      const den = this.sxx[k]! * this.syy[k]!;
+      coherence[k] = den > 0 ? Math.min(1, (this.sxyRe[k]! ** 2 + this.sxyIm[k]! ** 2) / den) : 0;
+    }
+    return { frequencies, syy: Float64Array.from(this.syy), coherence };
+  }
+}
+
+/** Octave bands (centres 31.5 Hz x 2^k, ISO 266 nominal values' exact base-2 form) below Nyquist. */
+export function octaveBands(sampleRate: number): { centreHz: number; lowHz: number; highHz: number }[] {
+  const out = [];
+  for (let c = 31.25; c * Math.SQRT2 <= sampleRate / 2; c *= 2) out.push({ centreHz: c, lowHz: c / Math.SQRT2, highHz: c * Math.SQRT2 });
+  return out;
+}
+
+/** Bound on the cancellation a linear filter can reach in a band: -10 log10(sum Syy (1 - C) / sum Syy). */
+export function bandBounds(r: ReturnType<WelchCross['result']>, sampleRate: number) {
+  return octaveBands(sampleRate).map((b) => {
+    let p = 0;
+    let residual = 0;
+    let coh = 0;
+    for (let k = 0; k < r.frequencies.length; k++) {
+      const f = r.frequencies[k]!;
+      if (f < b.lowHz || f >= b.highHz) continue;
+      p += r.syy[k]!;
+      residual += r.syy[k]! * (1 - r.coherence[k]!);
+      coh += r.syy[k]! * r.coherence[k]!;
+    }
+    return {
+      ...b,
+      coherence: p > 0 ? coh / p : null,
+      boundDb: p > 0 ? Math.min(MAX_BOUND_DB, -10 * Math.log10(Math.max(residual / p, 10 ** (-MAX_BOUND_DB / 10)))) : null,
+    };
+  });
+}
+
+/** A coherence of 1 within rounding would bound nothing: report at most this. */
+export const MAX_BOUND_DB = 100;

@@ -1,6 +1,6 @@
 import { renameSync, writeFileSync } from 'node:fs';
 import { join } from 'node:path';
-import { WelchPsd, spectrumSegment } from '../analysis/welch.js';
+import { WelchCross, WelchPsd, bandBounds, spectrumSegment } from '../analysis/welch.js';
 import type { Config } from '../config/schema.js';
 import { weightLimitOf } from '../dsp/kernels.js';
 import { INPUT_LIMIT } from '../dsp/level.js';
@@ -8,6 +8,7 @@ import { engineSettingsOf } from '../engine/settings.js';
 import { TapwardenError, oneLine, quote, type Warning } from '../errors.js';
 import { makeDirectory } from '../io/files.js';
 import { WavReader } from '../io/wav/reader.js';
+import { BandSink } from '../run/bands.js';
 import { checkChannels, checkLmsStep, scanReference, type FrameRange, type ReferenceScan } from '../run/preflight.js';
 import { Run } from '../run/run.js';
 import { DecisionLog, WavOutputs } from '../run/sinks.js';
@@ -45,6 +46,8 @@ export interface ReplayOptions {
    * `refused` instead of failing the replay (a sweep cell fails, not the sweep).
    */
   readonly skipRefused?: boolean;
+  /** A recording of the wanted signal alone (channel 0, same rate and start): per-band survival. */
+  readonly truth?: string;
 }
 
 export interface ReplayResult {
@@ -118,7 +121,21 @@ export function replay(opts: ReplayOptions): ReplayResult {
     const block = opts.blockFrames ?? 4096;
     const ref = new Float64Array(block);
     const des = new Float64Array(block);
-    const psd = new WelchPsd(spectrumSegment(rate), rate);
+    const segment = spectrumSegment(rate);
+    const psd = new WelchPsd(segment, rate);
+    const cross = new WelchCross(segment, rate);
+    const truthReader = opts.truth === undefined ? null : WavReader.open(opts.truth);
+    if (truthReader !== null) {
+      if (truthReader.format.sampleRate !== rate || truthReader.frames < range.to) {
+        const t = truthReader;
+        t.close();
+        throw new TapwardenError('TW_ERR_USAGE', {
+          detail: `--truth ${quote(opts.truth)} is ${t.frames} frames at ${t.format.sampleRate} Hz; allowed: a recording at ${rate} Hz of at least ${range.to} frames, aligned with ${recording}`,
+        });
+      }
+      truthReader.seek(range.from);
+    }
+    const truth = new Float64Array(block);
     const total = range.to - range.from;
     const runs = admitted.map((p) => {
       const dir = policies.length === 1 ? outDir : join(outDir, p.name);
@@ -134,8 +151,13 @@ export function replay(opts: ReplayOptions): ReplayResult {
       });
       const log = files ? new DecisionLog(join(dir, 'decisions.ndjson')) : null;
       const wavs = files ? new WavOutputs(join(dir, 'clean.wav'), join(dir, 'adaptive.wav'), rate, p.config.output.encoding) : null;
-      const run = new Run(settings, p.config.input.desiredChannel, log && wavs ? [summary, log, wavs] : [summary], block);
-      return { p, dir, run, summary, log, wavs, engineNs: 0n };
+      const bands =
+        p.config.output.signal === 'error'
+          ? new BandSink(segment, rate, truthReader !== null, p.config.filter.algorithm === 'pbfdaf' ? p.config.filter.blockSize : 0, block)
+          : null;
+      const sinks = [summary, ...(log && wavs ? [log, wavs] : []), ...(bands ? [bands] : [])];
+      const run = new Run(settings, p.config.input.desiredChannel, sinks, block);
+      return { p, dir, run, summary, log, wavs, bands, engineNs: 0n };
     });
     const channels = [first.config.input.referenceChannel, first.config.input.desiredChannel];
     let done = 0;
@@ -143,7 +165,16 @@ export function replay(opts: ReplayOptions): ReplayResult {
       const n = reader.read(channels, [ref.subarray(0, Math.min(block, total - done)), des]);
       if (n === 0) break;
       psd.push(ref, n);
+      cross.push(ref, des, n);
+      if (truthReader !== null) {
+        truth.fill(0);
+        truthReader.read([0], [truth.subarray(0, n)]);
+      }
       for (const r of runs) {
+        if (r.bands !== null) {
+          r.bands.desired = des;
+          if (truthReader !== null) r.bands.truth = truth;
+        }
         const t0 = process.hrtime.bigint();
         r.run.process(ref, des, n);
         r.engineNs += process.hrtime.bigint() - t0;
@@ -155,6 +186,8 @@ export function replay(opts: ReplayOptions): ReplayResult {
       r.wavs?.close();
       r.log?.close();
     }
+    truthReader?.close();
+    const bounds = bandBounds(cross.result(), rate);
     const elapsedSeconds = Number(process.hrtime.bigint() - started) / 1e9;
     const summaries = runs.map((r) => {
       const { config } = r.p;
@@ -204,6 +237,8 @@ export function replay(opts: ReplayOptions): ReplayResult {
         outOfRangeSamples: e.outOfRangeSamples,
         limits: { weight: weightLimitOf(r.run.settings.filter), weightMean: config.supervisor.maxWeightMean },
         drift: f.drift,
+        bands: r.bands?.figures(bounds) ?? null,
+        truth: opts.truth ?? null,
         outputs: {
           clean: 'clean.wav',
           adaptive: 'adaptive.wav',

@@ -1,5 +1,6 @@
 import type { Config } from '../config/schema.js';
 import type { Warning } from '../errors.js';
+import type { BandFigures } from '../run/bands.js';
 import type { SummaryFigures } from '../run/summary.js';
 
 /** summary.json: one policy's replay of one recording (README "summary.json"). */
@@ -26,6 +27,10 @@ export interface Summary extends Omit<SummaryFigures, 'drift'> {
   /** The arithmetic's largest |w| and the supervisor's bound on |weight mean|. */
   limits: { weight: number; weightMean: number };
   drift: SummaryFigures['drift'];
+  /** Per octave band: coherence bound, achieved clean cancellation, survival of the truth (null with output.signal estimate). */
+  bands: BandFigures[] | null;
+  /** The --truth recording, or null. */
+  truth: string | null;
   outputs: { clean: string; adaptive: string; decisions: string; clippedSamples: number; nonFiniteSamples: number };
   /** Seconds this policy's engine took. */
   engineSeconds: number;
@@ -90,6 +95,16 @@ export function formatSummary(s: Summary, outDir: string): string {
   lines.push(
     `saturations weights ${sat.adaptive.weights}; signal adaptive ${sat.adaptive.signal}, clean ${sat.clean.signal}; input non-finite ${s.nonFiniteSamples}, out of range ${s.outOfRangeSamples}`,
     `drift       ${describeDrift(s)}`,
+    ...(s.truth !== null && s.bands !== null
+      ? [
+          `truth       wanted signal survived (SDR per octave): ${
+            s.bands
+              .filter((b) => b.survivedDb !== null)
+              .map((b) => `${b.centreHz >= 1000 ? `${b.centreHz / 1000} kHz` : `${b.centreHz} Hz`} ${b.survivedDb!.toFixed(1)} dB`)
+              .join(', ') || 'no band holds the wanted signal'
+          }`,
+        ]
+      : []),
     `speed       ${s.realtimeFactor.toFixed(1)}x real time (wall clock)`,
     `written     ${outDir}/summary.json, decisions.ndjson, clean.wav, adaptive.wav, report.html`,
   );

@@ -3,7 +3,7 @@ import { join } from 'node:path';
 import { CorrelationAccumulator, stretchCovariance } from '../../analysis/correlation.js';
 import { analyzeExcitation, type ExcitationAnalysis } from '../../analysis/excitation.js';
 import { DbHistogram } from '../../analysis/histogram.js';
-import { WelchPsd, spectrumSegment } from '../../analysis/welch.js';
+import { WelchCross, WelchPsd, bandBounds, spectrumSegment } from '../../analysis/welch.js';
 import { DEFAULT_CONFIG_PATH, loadConfig } from '../../config/load.js';
 import { INPUT_LIMIT, powerDb } from '../../dsp/level.js';
 import { TapwardenError, oneLine, quote, warningLine } from '../../errors.js';
@@ -36,8 +36,12 @@ function clean(v: number): number {
   return v > INPUT_LIMIT ? INPUT_LIMIT : v < -INPUT_LIMIT ? -INPUT_LIMIT : v;
 }
 
+/** Per octave band: the reference-measurement coherence and the cancellation it bounds. */
+export type CoherenceBands = ReturnType<typeof bandBounds>;
+
 interface Selection {
   readonly analysis: ExcitationAnalysis & { windowsUsed: number; windowsExcluded: number; faultDb: number };
+  readonly coherence: { segmentLength: number; segments: number; bands: CoherenceBands };
   readonly spectrum: { frequencies: Float64Array; psd: Float64Array };
   readonly rate: number;
   readonly durationSeconds: number;
@@ -76,6 +80,13 @@ function table(a: Selection['analysis'], s: Selection): string {
       ]);
     }
   }
+  for (const b of s.coherence.bands) {
+    if (b.coherence === null) continue;
+    rows.push([
+      `  ${b.centreHz >= 1000 ? `${b.centreHz / 1000} k` : `${b.centreHz} `}Hz octave`,
+      `coherence ${b.coherence.toFixed(3)}, cancellation bound ${b.boundDb!.toFixed(1)} dB`,
+    ]);
+  }
   const w = Math.max(...rows.map(([k]) => k.length));
   return rows.map(([k, v]) => `${k.padEnd(w)}  ${v}`).join('\n');
 }
@@ -88,7 +99,8 @@ export const analyze: Command = {
 Excitation analysis of the reference channel for an N-tap filter: Welch power spectrum; the
 eigenvalues of the N x N autocorrelation matrix, their spread and how many fall below the
 threshold relative to lambda_max (directions the input does not excite); the bands with no energy;
-the LMS and NLMS step bounds; and, from the desired channel, a suggested leak with the predicted
+the LMS and NLMS step bounds; per octave band, the coherence of reference and measurement and the
+cancellation it bounds, -10 log10(1 - coherence); and, from the desired channel, a suggested leak with the predicted
 bias of (R + leak I)^-1 p against the unregularized solution: the largest whose predicted loss
 is at most 0.5 dB in every supervisor window (each with its own R and p; up to ${SEGMENT_MAX_TAPS} taps).
 R and p come from up to
@@ -157,6 +169,7 @@ Options:
       config: configFile ?? DEFAULT_CONFIG_PATH,
       warnings: sel.warnings,
       ...a,
+      coherence: sel.coherence,
       spectrum: { frequencies: Array.from(sel.spectrum.frequencies), psd: Array.from(sel.spectrum.psd) },
     });
     process.stdout.write(table(a, sel) + `\nwritten     ${outDir}/analysis.json, report.html\n`);
@@ -211,6 +224,7 @@ function select(recording: string, config: ReturnType<typeof loadConfig>, taps: 
     const typical = median.quantile(0.5) ?? -Infinity;
     for (let w = 0; w < windows; w++) if (desiredDb[w]! > typical + FAULT_DB) faulty[w] = 1;
     const acc = new CorrelationAccumulator(taps);
+    const cross = new WelchCross(spectrumSegment(rate), rate);
     const segments: Array<ReturnType<typeof stretchCovariance>> = [];
     const keptWindows = Math.min(windows - faulty.reduce((a, b) => a + b, 0), Math.ceil((CORRELATION_SECONDS * rate) / win));
     const every = Math.max(1, Math.ceil(keptWindows / SEGMENT_WINDOWS));
@@ -229,6 +243,7 @@ function select(recording: string, config: ReturnType<typeof loadConfig>, taps: 
       }
       const keep = !faulty[w];
       acc.push(x, d, n, keep);
+      if (keep) cross.push(x, d, n);
       if (keep && taps <= SEGMENT_MAX_TAPS && used % every === 0 && n === win) {
         // The window alone, its x[i-k] reaching back into the previous window.
         const withHistory = new Float64Array(taps - 1 + n);
@@ -262,6 +277,7 @@ function select(recording: string, config: ReturnType<typeof loadConfig>, taps: 
     });
     return {
       analysis: { ...analysis, windowsUsed: used, windowsExcluded: excluded, faultDb: FAULT_DB },
+      coherence: { segmentLength: cross.segmentLength, segments: cross.segments, bands: bandBounds(cross.result(), rate) },
       spectrum,
       rate,
       durationSeconds: (range.to - range.from) / rate,

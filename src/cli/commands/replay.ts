@@ -19,7 +19,7 @@ function policyName(file: string, taken: Set<string>): string {
 export const replayCommand: Command = {
   summary: 'run a recording through the engine (one or several policies) and report',
   usage: `Usage: tapwarden replay [REC.wav] [--config FILE] [--policy P.yaml ...] [--gate BASELINE]
-                        [--from SECONDS] [--to SECONDS] [--out DIR]
+                        [--from SECONDS] [--to SECONDS] [--truth SIGNAL.wav] [--out DIR]
 
 Runs the dual-path engine over a recording as fast as the CPU allows and writes
 DIR/summary.json, DIR/decisions.ndjson (every window's decision record), DIR/clean.wav (the
@@ -38,6 +38,8 @@ Options:
   --gate BASELINE    exit 8 when a policy is worse than BASELINE (one of the --policy files or its name)
   --from SECONDS     start this far into the recording (default 0)
   --to SECONDS       stop here (default: the end)
+  --truth FILE       the wanted signal alone (the demo writes one): per octave band, how much of it
+                     survived in the clean output (signal-to-distortion ratio)
   --out DIR          output directory (default: tapwarden-out)
   -h, --help         this help`,
   options: {
@@ -46,6 +48,7 @@ Options:
     gate: { type: 'string' },
     from: { type: 'string' },
     to: { type: 'string' },
+    truth: { type: 'string' },
     out: { type: 'string', default: 'tapwarden-out' },
   },
   positionals: [0, 1],
@@ -93,7 +96,8 @@ Options:
     const bar = progressBar('replay');
     let result;
     try {
-      result = replay({ recording, policies, outDir, judge, range, onProgress: (done, total) => bar.update(done, total) });
+      const truth = values['truth'] as string | undefined;
+      result = replay({ recording, policies, outDir, judge, range, ...(truth === undefined ? {} : { truth }), onProgress: (done, total) => bar.update(done, total) });
     } finally {
       bar.stop();
     }
