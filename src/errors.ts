@@ -21,6 +21,12 @@ export const ERRORS = {
     message:
       'config {file}: filter.step = {step} is not allowed for this reference; allowed: below the LMS mean-square bound 2/tr(R + leak I) = {bound} (mean convergence alone needs below 2/(lambda_max + leak) = {meanBound}); {figures}',
     exitCode: 2,
+    httpStatus: 400,
+  },
+  TW_ERR_SETTINGS_KEY: {
+    message: 'settings: {key} cannot change while serving; allowed: filter.step, filter.leak, filter.leakShift, filter.meanRemovalEvery and supervisor.* (restart for the rest)',
+    exitCode: 1,
+    httpStatus: 400,
   },
   TW_ERR_INPUT_OPEN: { message: 'cannot open {file}: {reason}', exitCode: 3 },
   TW_ERR_WAV_NOT_RIFF: { message: '{file} is not a WAV file: {reason}', exitCode: 3 },

@@ -276,11 +276,11 @@ export class FdafAdaptiveKernel implements AdaptiveKernel, BlockHandler {
   private readonly g: Float64Array;
   private readonly normalized: boolean;
   /** The leak over one block of N samples: (1 - step leak)^N (1 - 2^-k)^N. */
-  private readonly keep: number;
+  private keep: number;
   private blocks = 0;
 
   constructor(
-    readonly spec: AdaptiveSpec,
+    public spec: AdaptiveSpec,
     private readonly opts: FdafOptions,
   ) {
     this.pf = new PartitionedFilter(spec.taps, opts.blockSize);
@@ -293,9 +293,18 @@ export class FdafAdaptiveKernel implements AdaptiveKernel, BlockHandler {
     this.E = new Float64Array(2 * this.pf.bins);
     this.G = new Float64Array(2 * this.pf.bins);
     this.g = new Float64Array(2 * opts.blockSize);
-    const N = opts.blockSize;
-    // The leak uses the unnormalized step, as in the time-domain kernels.
-    this.keep = (1 - spec.step * spec.leak) ** N * (spec.leakShift === null ? 1 : (1 - 2 ** -spec.leakShift) ** N);
+    this.keep = this.keepOf(spec);
+  }
+
+  /** The leak uses the unnormalized step, as in the time-domain kernels: its factor over a block. */
+  private keepOf(spec: AdaptiveSpec): number {
+    const N = this.opts.blockSize;
+    return (1 - spec.step * spec.leak) ** N * (spec.leakShift === null ? 1 : (1 - 2 ** -spec.leakShift) ** N);
+  }
+
+  retune(spec: AdaptiveSpec): void {
+    this.spec = spec;
+    this.keep = this.keepOf(spec);
   }
 
   run(x: Float64Array, d: Float64Array, _noise: Float64Array | null, y: Float64Array, e: Float64Array, start: number, end: number): void {

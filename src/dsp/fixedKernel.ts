@@ -130,13 +130,13 @@ export class FixedAdaptiveKernel implements AdaptiveKernel {
   private readonly evalLine: DelayLine<Float64Array>;
   private readonly adaptLine: DelayLine<Float64Array>;
   private readonly dot: Dot;
-  private readonly muQ: number;
-  private readonly deltaQ: number;
-  private readonly lfQ: number;
+  private muQ: number;
+  private deltaQ: number;
+  private lfQ: number;
   private energy = 0;
   private sinceMeanRemoval = 0;
 
-  constructor(readonly spec: AdaptiveSpec) {
+  constructor(public spec: AdaptiveSpec) {
     this.fmt = requireFormat(spec.arithmetic);
     this.regs = new Registers(this.fmt, spec.rounding);
     this.scale = this.regs.scale;
@@ -263,6 +263,12 @@ export class FixedAdaptiveKernel implements AdaptiveKernel {
 
   weightStats(out: WeightStats): WeightStats {
     return statsOf(this.W, this.scale, out);
+  }
+
+  retune(spec: AdaptiveSpec): void {
+    this.spec = spec;
+    ({ muQ: this.muQ, deltaQ: this.deltaQ, lfQ: this.lfQ } = fixedConstants(spec, this.fmt));
+    if (spec.meanRemovalEvery === null) this.sinceMeanRemoval = 0;
   }
 }
 

@@ -36,10 +36,10 @@ export class Float32AdaptiveKernel implements AdaptiveKernel {
   private readonly w: Float32Array;
   private readonly adaptLine: DelayLine<Float32Array>;
   private readonly evalLine: DelayLine<Float32Array>;
-  private readonly k: ReturnType<typeof float32Constants>;
+  private k: ReturnType<typeof float32Constants>;
   private sinceMeanRemoval = 0;
 
-  constructor(readonly spec: AdaptiveSpec) {
+  constructor(public spec: AdaptiveSpec) {
     this.w = new Float32Array(spec.taps);
     this.adaptLine = line(spec.taps);
     this.evalLine = line(spec.taps);
@@ -132,6 +132,11 @@ export class Float32AdaptiveKernel implements AdaptiveKernel {
 
   weightStats(out: WeightStats): WeightStats {
     return statsOf(this.w, 1, out);
+  }
+
+  retune(spec: AdaptiveSpec): void {
+    this.spec = spec;
+    this.k = float32Constants(spec);
   }
 }
 

@@ -16,7 +16,7 @@ export class FloatAdaptiveKernel implements AdaptiveKernel {
   private readonly evalLine: DelayLine<Float64Array>;
   private sinceMeanRemoval = 0;
 
-  constructor(readonly spec: AdaptiveSpec) {
+  constructor(public spec: AdaptiveSpec) {
     this.w = new Float64Array(spec.taps);
     this.adaptLine = new DelayLine(spec.taps, (n) => new Float64Array(n));
     this.evalLine = new DelayLine(spec.taps, (n) => new Float64Array(n));
@@ -116,6 +116,10 @@ export class FloatAdaptiveKernel implements AdaptiveKernel {
 
   weightStats(out: WeightStats): WeightStats {
     return statsOf(this.w, 1, out);
+  }
+
+  retune(spec: AdaptiveSpec): void {
+    this.spec = spec;
   }
 }
 

@@ -80,6 +80,11 @@ export interface AdaptiveKernel {
   /** Clears the delay line(s) and weights. */
   reset(): void;
   weightStats(out: WeightStats): WeightStats;
+  /**
+   * Takes new step, delta, leak, leakShift and meanRemovalEvery (same algorithm, taps and
+   * arithmetic) from the next sample on; weights and delay lines stay (serve's live settings).
+   */
+  retune(spec: AdaptiveSpec): void;
 }
 
 /** A fixed-weight transversal filter in the same arithmetic: the clean path's filter. */

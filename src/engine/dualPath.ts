@@ -68,6 +68,8 @@ export interface EngineListener {
   onWindow?(report: WindowReport): void;
   onHandoff?(snapshot: WeightSnapshot): void;
   onRollback?(sample: number, reason: 'supervisor' | 'forced'): void;
+  /** New settings took effect at a window boundary (serve's live settings). */
+  onSettings?(sample: number, old: EngineSettings, next: EngineSettings): void;
 }
 
 const CHUNK = 1024;
@@ -79,8 +81,8 @@ const CHUNK = 1024;
  * outputs do not depend on how callers block the stream.
  */
 export class DualPathEngine {
-  readonly windowSamples: number;
-  readonly crossfadeSamples: number;
+  windowSamples: number;
+  crossfadeSamples: number;
   private readonly adaptive: AdaptiveKernel;
   private readonly clean: FirKernel;
   private readonly fading: FirKernel;
@@ -114,15 +116,18 @@ export class DualPathEngine {
   private fadePos = 0;
   private fadeActive = false;
   private cleanSnapshot: WeightSnapshot;
+  private current: EngineSettings;
+  private pendingSettings: EngineSettings | null = null;
   /** Non-finite input samples replaced by zero, since the start. */
   nonFiniteSamples = 0;
   /** Finite input samples beyond +-INPUT_LIMIT clamped to it, since the start. */
   outOfRangeSamples = 0;
 
   constructor(
-    readonly settings: EngineSettings,
+    settings: EngineSettings,
     private readonly listener: EngineListener = {},
   ) {
+    this.current = settings;
     const { sampleRate, filter, supervisor } = settings;
     this.windowSamples = Math.max(1, Math.round(supervisor.windowSeconds * sampleRate));
     this.crossfadeSamples = Math.max(0, Math.round(supervisor.crossfadeSeconds * sampleRate));
@@ -132,6 +137,21 @@ export class DualPathEngine {
     this.noiseGen = filter.noiseInjectionDb === null ? null : new GaussianNoise(filter.noiseSeed);
     this.noiseSigma = filter.noiseInjectionDb === null ? 0 : sigmaOfDb(filter.noiseInjectionDb);
     this.cleanSnapshot = { version: 0, weights: new Float64Array(filter.taps), sample: 0, reason: 'restored' };
+  }
+
+  /** The settings in effect (they change only at a window boundary, by changeSettings). */
+  get settings(): EngineSettings {
+    return this.current;
+  }
+
+  /**
+   * New settings from the next window boundary on: the same algorithm, taps, arithmetic, noise
+   * and output (the caller checks that); the filter's step, delta, leak, leakShift and mean
+   * removal, and any supervisor setting, may change. A second call before the boundary replaces
+   * the first.
+   */
+  changeSettings(next: EngineSettings): void {
+    this.pendingSettings = next;
   }
 
   /** Samples consumed since the start. */
@@ -332,6 +352,16 @@ export class DualPathEngine {
     this.satAS0 = this.adaptive.signalSaturations;
     this.satCS0 = this.cleanSignalSaturations;
     this.listener.onWindow?.(report);
+    const next = this.pendingSettings;
+    if (next !== null) {
+      this.pendingSettings = null;
+      const old = this.current;
+      this.current = next;
+      this.windowSamples = Math.max(1, Math.round(next.supervisor.windowSeconds * next.sampleRate));
+      this.crossfadeSamples = Math.max(0, Math.round(next.supervisor.crossfadeSeconds * next.sampleRate));
+      this.adaptive.retune(next.filter);
+      this.listener.onSettings?.(this.sample, old, next);
+    }
   }
 
   private figures(ws: WeightStats, pe: number, pd: number, weightSaturations: number, signalSaturations: number): PathFigures {

@@ -51,4 +51,12 @@ export type RunEvent =
       readonly sample: number;
       readonly timeSeconds: number;
       readonly reason: 'supervisor' | 'forced';
+    }
+  | {
+      /** Live settings took effect (POST /api/control/settings): every changed key, old and new. */
+      readonly type: 'settings';
+      readonly channel: number;
+      readonly sample: number;
+      readonly timeSeconds: number;
+      readonly changes: Readonly<Record<string, { from: unknown; to: unknown }>>;
     };

@@ -46,12 +46,12 @@ export class Run {
   private readonly forecaster: DriftForecaster;
   private readonly weights: Float64Array;
   private readonly weightLimit: number;
-  private readonly meanBound: number;
+  private meanBound: number;
   private cleanOut: Float64Array;
   private adaptiveOut: Float64Array;
 
   constructor(
-    readonly settings: EngineSettings,
+    settings: EngineSettings,
     /** The measurement channel the records are tagged with. */
     readonly channel: number,
     sinks: readonly RunSink[],
@@ -69,7 +69,23 @@ export class Run {
       onWindow: (r) => this.window(r),
       onHandoff: (s) => this.handoff(s),
       onRollback: (sample, reason) => this.rolledBack(sample, reason),
+      onSettings: (sample, old, next) => this.settingsChanged(sample, old, next),
     });
+  }
+
+  get settings(): EngineSettings {
+    return this.engine.settings;
+  }
+
+  private settingsChanged(sample: number, old: EngineSettings, next: EngineSettings): void {
+    const changes: Record<string, { from: unknown; to: unknown }> = {};
+    for (const section of ['filter', 'supervisor'] as const) {
+      const a = old[section] as unknown as Record<string, unknown>;
+      const b = next[section] as unknown as Record<string, unknown>;
+      for (const k of Object.keys(b)) if (a[k] !== b[k]) changes[`${section}.${k}`] = { from: a[k], to: b[k] };
+    }
+    this.meanBound = next.supervisor.maxWeightMean;
+    this.sink.onEvent({ type: 'settings', channel: this.channel, sample, timeSeconds: this.seconds(sample), changes }, null);
   }
 
   /** Processes n frames of reference and desired (n may exceed the block size given at construction). */

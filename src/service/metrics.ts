@@ -42,6 +42,7 @@ export class ServiceMetrics implements RunSink {
   });
   readonly decisions = new Counter({ name: 'tapwarden_supervisor_decisions_total', help: 'Supervisor decisions by outcome.', labelNames: ['outcome'], registers: [this.registry] });
   readonly rollbacks = new Counter({ name: 'tapwarden_rollbacks_total', help: 'Restarts of the adaptive path from the clean weights.', labelNames: ['reason'], registers: [this.registry] });
+  readonly settingsChanges = new Counter({ name: 'tapwarden_settings_changes_total', help: 'Live settings changes that took effect (POST /api/control/settings).', registers: [this.registry] });
   readonly resets = new Counter({ name: 'tapwarden_resets_total', help: 'Operator resets of both paths.', registers: [this.registry] });
   readonly errorPower = new Gauge({ name: 'tapwarden_error_power_db', help: 'Error power over the last window, dB re full scale.', labelNames: ['path'], registers: [this.registry] });
   readonly cancellation = new Gauge({ name: 'tapwarden_cancellation_db', help: 'Cancellation 10 log10(Pd/Pe) over the last window, dB.', labelNames: ['path'], registers: [this.registry] });
@@ -159,6 +160,10 @@ export class ServiceMetrics implements RunSink {
   onEvent(e: RunEvent): void {
     if (e.type === 'rollback') {
       this.rollbacks.labels(e.reason).inc();
+      return;
+    }
+    if (e.type === 'settings') {
+      this.settingsChanges.inc();
       return;
     }
     if (e.reason === 'supervisor' || e.reason === 'forced') this.accepted.labels(e.reason).inc();

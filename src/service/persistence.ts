@@ -5,6 +5,7 @@ import type { EngineSettings } from '../engine/dualPath.js';
 import { oneLine } from '../errors.js';
 import type { RunEvent } from '../run/record.js';
 import type { RunSink } from '../run/run.js';
+import { LIVE_FILTER_KEYS } from './settings.js';
 
 /**
  * The clean path's weights on disk. A write goes to a temporary file that is fsynced and then
@@ -25,6 +26,8 @@ export interface Snapshot {
   cleanVersion: number;
   weights: number[];
   sha256: string;
+  /** The live settings in effect when saved (README "Settings without a restart"); restored on start. */
+  settings?: { filter: Record<string, unknown>; supervisor: Record<string, unknown> };
 }
 
 function digest(weights: number[]): string {
@@ -33,6 +36,7 @@ function digest(weights: number[]): string {
 
 export function makeSnapshot(settings: EngineSettings, weights: number[], cleanVersion: number): Snapshot {
   const f = settings.filter;
+  const live = f as unknown as Record<string, unknown>;
   return {
     format: SNAPSHOT_FORMAT,
     savedAt: new Date().toISOString(),
@@ -43,6 +47,10 @@ export function makeSnapshot(settings: EngineSettings, weights: number[], cleanV
     cleanVersion,
     weights,
     sha256: digest(weights),
+    settings: {
+      filter: Object.fromEntries(LIVE_FILTER_KEYS.map((k) => [k, live[k]])),
+      supervisor: { ...settings.supervisor },
+    },
   };
 }
 
@@ -137,10 +145,21 @@ export class SnapshotSink implements RunSink {
 
   constructor(
     private readonly writer: SnapshotWriter,
-    private readonly settings: EngineSettings,
+    private settings: EngineSettings,
   ) {}
 
   onEvent(e: RunEvent, weights: Float64Array | null): void {
+    if (e.type === 'settings') {
+      const next = { filter: { ...this.settings.filter } as Record<string, unknown>, supervisor: { ...this.settings.supervisor } as Record<string, unknown> };
+      for (const [key, c] of Object.entries(e.changes)) {
+        const [section, name] = key.split('.') as ['filter' | 'supervisor', string];
+        next[section][name] = c.to;
+      }
+      this.settings = { ...this.settings, filter: next.filter as unknown as EngineSettings['filter'], supervisor: next.supervisor as unknown as EngineSettings['supervisor'] };
+      // Saved with the weights in effect, so a restart resumes with both.
+      if (this.latest !== null) this.writer.offer(makeSnapshot(this.settings, this.latest.weights, this.latest.version));
+      return;
+    }
     if (e.type !== 'handoff' || weights === null) return;
     this.latest = { weights: Array.from(weights), version: e.version };
     if (e.reason !== 'restored') this.writer.offer(makeSnapshot(this.settings, this.latest.weights, e.version));

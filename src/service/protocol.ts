@@ -1,3 +1,4 @@
+import type { EngineSettings } from '../engine/dualPath.js';
 import type { Config } from '../config/schema.js';
 import type { DecisionRecord, RunEvent } from '../run/record.js';
 
@@ -14,7 +15,9 @@ export type ControlOp =
   | { kind: 'adaptation'; frozen: boolean }
   | { kind: 'handoffs'; frozen: boolean }
   | { kind: 'rollback' }
-  | { kind: 'reset' };
+  | { kind: 'reset' }
+  /** New settings from the next window boundary on (validated by the main thread). */
+  | { kind: 'settings'; settings: EngineSettings };
 
 export interface WeightsReply {
   clean: number[];

@@ -6,7 +6,8 @@ import { weightLimitOf } from '../dsp/kernels.js';
 import { engineSettingsOf } from '../engine/settings.js';
 import { TapwardenError, oneLine } from '../errors.js';
 import { WavReader } from '../io/wav/reader.js';
-import { checkChannels, checkLmsStep, scanReference } from '../run/preflight.js';
+import { checkChannels, checkLmsStep, scanReference, type ReferenceScan } from '../run/preflight.js';
+import { liveSettings, liveView } from './settings.js';
 import type { DecisionRecord, RunEvent } from '../run/record.js';
 import type { RunSink } from '../run/run.js';
 import { VERSION } from '../version.js';
@@ -59,12 +60,16 @@ function readToken(config: Config, configFile: string): string | null {
 }
 
 /** The stream's file (the cached demo when none is set) and rate, after the run layer's pre-flight checks. */
-function prepareSource(config: Config, configFile: string, warn: (m: string) => void): { file: string | null; sampleRate: number; description: string } {
+function prepareSource(
+  config: Config,
+  configFile: string,
+  warn: (m: string) => void,
+): { file: string | null; sampleRate: number; description: string; scan: ReferenceScan | null } {
   const { stream } = config;
   if (stream.source === 'device') {
     checkChannels(stream.device.channels, config, `stream.device (${stream.device.channels} channels)`);
     const d = stream.device;
-    return { file: null, sampleRate: d.sampleRate, description: `device ${d.input === null ? '(default)' : JSON.stringify(d.input)}, ${d.channels} channel(s) at ${d.sampleRate} Hz` };
+    return { file: null, sampleRate: d.sampleRate, description: `device ${d.input === null ? '(default)' : JSON.stringify(d.input)}, ${d.channels} channel(s) at ${d.sampleRate} Hz`, scan: null };
   }
   const file = stream.file ?? cachedDemo();
   const reader = WavReader.open(file);
@@ -72,11 +77,10 @@ function prepareSource(config: Config, configFile: string, warn: (m: string) => 
     checkChannels(reader.format.channels, config, file);
     for (const w of reader.warnings) warn(w);
     const rate = reader.format.sampleRate;
-    if (config.filter.algorithm === 'lms') {
-      const scan = scanReference(reader, config.input.referenceChannel, { from: 0, to: reader.frames });
-      for (const w of checkLmsStep(scan, config, configFile, rate)) warn(w);
-    }
-    return { file, sampleRate: rate, description: `file ${file} (${stream.pace}${stream.loop ? ', looped' : ''})` };
+    // Kept for live settings: a new LMS step is checked against the same reference.
+    const scan = config.filter.algorithm === 'lms' ? scanReference(reader, config.input.referenceChannel, { from: 0, to: reader.frames }) : null;
+    if (scan !== null) for (const w of checkLmsStep(scan, config, configFile, rate)) warn(w);
+    return { file, sampleRate: rate, description: `file ${file} (${stream.pace}${stream.loop ? ', looped' : ''})`, scan };
   } finally {
     reader.close();
   }
@@ -86,7 +90,12 @@ function prepareSource(config: Config, configFile: string, warn: (m: string) => 
 function logSink(log: Logger): RunSink {
   return {
     onRecord: (r: DecisionRecord) => log.info({ decision: r }, 'supervisor decision'),
-    onEvent: (e: RunEvent) => (e.type === 'rollback' ? log.warn({ event: e }, 'adaptive path rolled back to the clean weights') : log.info({ event: e }, `clean path took weights (${e.reason})`)),
+    onEvent: (e: RunEvent) =>
+      e.type === 'rollback'
+        ? log.warn({ event: e }, 'adaptive path rolled back to the clean weights')
+        : e.type === 'settings'
+          ? log.info({ event: e }, `settings changed: ${Object.keys(e.changes).join(', ')}`)
+          : log.info({ event: e }, `clean path took weights (${e.reason})`),
   };
 }
 
@@ -136,16 +145,6 @@ export async function startService(config: Config, configFile: string): Promise<
     },
   });
 
-  if (writer !== null) {
-    const read = readSnapshot(writer.file);
-    const why = 'problem' in read ? read.problem : incompatibility(read.snapshot, settings);
-    if (why !== null) log.warn({ snapshot: writer.file }, `weights not restored: ${why}`);
-    else if (!('problem' in read)) {
-      status.applyReply(await host.restore(read.snapshot.weights));
-      log.info({ snapshot: writer.file, savedAt: read.snapshot.savedAt }, `weights restored from ${writer.file}`);
-    }
-  }
-
   const control = async (op: Parameters<EngineHost['control']>[0]) => {
     const r = await host.control(op);
     status.applyReply(r);
@@ -153,6 +152,34 @@ export async function startService(config: Config, configFile: string): Promise<
     metrics.handoffsEnabled.set(r.handoffsHeld ? 0 : 1);
     return r;
   };
+  // The settings last accepted (in effect from the window boundary after the request).
+  let live = config;
+  const changeSettings = async (body: unknown, why = 'request') => {
+    const next = liveSettings(live, body);
+    if (source.scan !== null) for (const w of checkLmsStep(source.scan, next, 'POST /api/control/settings', source.sampleRate)) log.warn({ code: 'TW_WARN_STEP' }, w);
+    await host.control({ kind: 'settings', settings: engineSettingsOf(next, source.sampleRate) });
+    live = next;
+    status.setRequestedSettings(liveView(next));
+    log.info({ settings: liveView(next), why }, 'settings accepted');
+    return { ok: true, appliesAt: 'the next window boundary', ...liveView(next) };
+  };
+  if (writer !== null) {
+    const read = readSnapshot(writer.file);
+    const why = 'problem' in read ? read.problem : incompatibility(read.snapshot, settings);
+    if (why !== null) log.warn({ snapshot: writer.file }, `weights not restored: ${why}`);
+    else if (!('problem' in read)) {
+      status.applyReply(await host.restore(read.snapshot.weights));
+      log.info({ snapshot: writer.file, savedAt: read.snapshot.savedAt }, `weights restored from ${writer.file}`);
+      if (read.snapshot.settings) {
+        try {
+          await changeSettings(read.snapshot.settings, 'restored from the snapshot');
+        } catch (err) {
+          log.warn({ snapshot: writer.file }, `settings not restored: ${oneLine(err)}`);
+        }
+      }
+    }
+  }
+
   const app = buildApp(log, [
     metricsPlugin(metrics),
     statusPlugin({
@@ -160,7 +187,7 @@ export async function startService(config: Config, configFile: string): Promise<
       ready: () => (host.failure !== null ? { ready: false, reason: `the engine failed: ${host.failure}` } : { ready: status.streamUp, reason: status.streamState }),
       weights: () => host.weights(),
     }),
-    controlPlugin(token, control),
+    controlPlugin(token, control, (body) => changeSettings(body)),
     feed.plugin,
   ]);
 

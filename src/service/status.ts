@@ -35,7 +35,24 @@ export class ServiceStatus implements RunSink {
     if (this.recent.length > RECENT_DECISIONS) this.recent.length = RECENT_DECISIONS;
   }
 
+  /** The live settings (filter step, leak, leakShift, meanRemovalEvery; supervisor) in effect, and any accepted but not yet in effect. */
+  private effective: { filter: Record<string, unknown>; supervisor: Record<string, unknown> } | null = null;
+  private requested: { filter: Record<string, unknown>; supervisor: object } | null = null;
+
+  setRequestedSettings(s: { filter: Record<string, unknown>; supervisor: object }): void {
+    this.requested = s;
+  }
+
   onEvent(e: RunEvent): void {
+    if (e.type === 'settings') {
+      const eff = (this.effective ??= { filter: { ...this.config.filter }, supervisor: { ...this.config.supervisor } });
+      for (const [key, c] of Object.entries(e.changes)) {
+        const [section, name] = key.split('.') as ['filter' | 'supervisor', string];
+        eff[section][name] = c.to;
+      }
+      this.requested = null;
+      return;
+    }
     if (e.type !== 'handoff') return;
     this.lastHandoff = { ...e, at: new Date().toISOString() };
     this.flags = { ...this.flags, cleanVersion: e.version };
@@ -85,8 +102,9 @@ export class ServiceStatus implements RunSink {
       version: VERSION,
       uptimeSeconds: (Date.now() - this.startedAt) / 1000,
       stream: this.stream(),
-      filter: this.config.filter,
-      supervisor: this.config.supervisor,
+      filter: this.effective?.filter ?? this.config.filter,
+      supervisor: this.effective?.supervisor ?? this.config.supervisor,
+      pendingSettings: this.requested,
       engine: this.engine(),
       lastWindow: this.last,
       lastHandoff: this.lastHandoff,

@@ -86,6 +86,7 @@ port.on('message', (m: ToWorker) => {
         else if (op.kind === 'adaptation') engine.adapting = !op.frozen;
         else if (op.kind === 'handoffs') engine.handoffsHeld = op.frozen;
         else if (op.kind === 'rollback') engine.rollback('forced');
+        else if (op.kind === 'settings') engine.changeSettings(op.settings);
         else engine.reset();
         break;
       }

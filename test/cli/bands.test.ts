@@ -62,7 +62,7 @@ describe('replay per octave band: coherence bound, achieved cancellation, surviv
     // No other band holds the truth; everywhere the achieved cancellation stays below the bound.
     for (const b of bands) {
       if (b.centreHz !== 1000) expect(b.survivedDb).toBeNull();
-      if (b.boundDb !== null && b.achievedDb !== null && b.centreHz >= 125) expect(b.achievedDb).toBeLessThan(b.boundDb + 0.5);
+      if (b.boundDb !== null && b.achievedDb !== null && b.centreHz! >= 125) expect(b.achievedDb).toBeLessThan(b.boundDb + 0.5);
     }
   });
 

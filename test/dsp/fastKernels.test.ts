@@ -41,7 +41,7 @@ function driveFir(k: FirKernel, w: Float64Array) {
   return { y, e, sat: k.signalSaturations };
 }
 
-const bits = (a: Float64Array) => Buffer.from(a.buffer);
+const bits = (a: Float64Array) => Buffer.from(a.buffer, a.byteOffset, a.byteLength);
 
 describe('fast kernels reproduce the reference kernels', () => {
   it('are built', () => expect(fastKernelsAvailable()).toBe(true));
@@ -125,6 +125,32 @@ describe('fast kernels reproduce the reference kernels', () => {
       const firRef = driveFir(new FloatFirKernel(s), ref.w);
       const firFast = driveFir(new WasmFirKernel(s), ref.w);
       for (let i = 0; i < n; i++) expect(Math.abs(firFast.e[i]! - firRef.e[i]!)).toBeLessThan(1e-12);
+    });
+  }
+});
+
+describe('retune: new step, leak, leakShift and mean removal mid-run (serve live settings)', () => {
+  for (const arithmetic of ['float32', 'q15', 'q31', 'float64'] as const) {
+    it(`${arithmetic}: the fast kernel follows the reference through a retune, and the retune takes effect`, () => {
+      const s1 = spec({ arithmetic, algorithm: 'nlms', taps: 17, step: 0.5, delta: 1e-4 });
+      const s2 = { ...s1, step: 0.1, leak: 0.002, leakShift: 11, meanRemovalEvery: 50 };
+      const make = (fast: boolean) =>
+        fast ? new WasmAdaptiveKernel(s1) : arithmetic === 'float32' ? new Float32AdaptiveKernel(s1) : arithmetic === 'float64' ? new FloatAdaptiveKernel(s1) : new FixedAdaptiveKernel(s1);
+      const go = (k: AdaptiveKernel, retune: boolean) => {
+        const y = new Float64Array(n);
+        const e = new Float64Array(n);
+        k.run(x, d, null, y, e, 0, 3001);
+        if (retune) k.retune(s2);
+        k.run(x, d, null, y, e, 3001, n);
+        return { e, w: k.getWeights() };
+      };
+      const ref = go(make(false), true);
+      const fast = go(make(true), true);
+      if (arithmetic === 'float64') for (let i = 0; i < n; i++) expect(Math.abs(fast.e[i]! - ref.e[i]!)).toBeLessThan(1e-10);
+      else expect(bits(fast.e).equals(bits(ref.e))).toBe(true);
+      const unchanged = go(make(false), false);
+      expect(bits(unchanged.e.subarray(0, 3001)).equals(bits(ref.e.subarray(0, 3001)))).toBe(true);
+      expect(bits(unchanged.e.subarray(3001)).equals(bits(ref.e.subarray(3001)))).toBe(false);
     });
   }
 });

@@ -123,22 +123,29 @@ export class WasmAdaptiveKernel implements AdaptiveKernel {
   private readonly inst: Instance;
   private readonly fmt: QFormat | null;
   private readonly scale: number;
-  private readonly muQ: bigint;
-  private readonly deltaQ: bigint;
-  private readonly lfQ: bigint;
-  private readonly shift: number;
-  private readonly shiftc: number;
+  private muQ = 0n;
+  private deltaQ = 0n;
+  private lfQ = 0n;
+  private shift = -1;
+  private shiftc = 0;
   private extraSat = 0;
   private noiseOn = 0;
   private readonly single: boolean;
-  private readonly f32: ReturnType<typeof float32Constants>;
+  private f32: ReturnType<typeof float32Constants>;
 
-  constructor(readonly spec: AdaptiveSpec) {
+  constructor(public spec: AdaptiveSpec) {
     this.fmt = formatOf(spec.arithmetic);
     this.single = spec.arithmetic === 'float32';
     this.f32 = float32Constants(spec);
     this.inst = new Instance(spec.taps, this.fmt, spec.rounding, this.single);
     this.scale = this.fmt ? 2 ** -this.fmt.fracBits : 1;
+    this.retune(spec);
+  }
+
+  retune(spec: AdaptiveSpec): void {
+    this.flush();
+    this.spec = spec;
+    this.f32 = float32Constants(spec);
     const q = this.fmt ? fixedConstants(spec, this.fmt) : { muQ: 0, deltaQ: 0, lfQ: 0 };
     this.muQ = BigInt(q.muQ);
     this.deltaQ = BigInt(q.deltaQ);

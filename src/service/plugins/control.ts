@@ -23,7 +23,11 @@ const emptyBody = { type: ['object', 'null'], additionalProperties: false, prope
  * POST /api/control/*: operator actions, behind the bearer token; refused outright when no token
  * is configured. Each reply states the engine's flags after the action.
  */
-export function controlPlugin(token: string | null, control: (op: ControlOp) => Promise<WeightsReply>): FastifyPluginAsync {
+export function controlPlugin(
+  token: string | null,
+  control: (op: ControlOp) => Promise<WeightsReply>,
+  settings: (body: unknown) => Promise<object>,
+): FastifyPluginAsync {
   return async (app) => {
     app.addHook('onRequest', async (req, reply) => {
       if (token === null) return sendError(reply, new TapwardenError('TW_ERR_AUTH_NOT_CONFIGURED'));
@@ -44,5 +48,10 @@ export function controlPlugin(token: string | null, control: (op: ControlOp) => 
     route('/api/control/reset', emptyBody, () => ({ kind: 'reset' }));
     route('/api/control/adaptation', frozenBody, (b) => ({ kind: 'adaptation', frozen: b.frozen }));
     route('/api/control/handoffs', frozenBody, (b) => ({ kind: 'handoffs', frozen: b.frozen }));
+    app.post('/api/control/settings', { schema: { body: { type: 'object' } } }, async (req) => {
+      const r = await settings(req.body);
+      req.log.info({ control: '/api/control/settings', body: req.body }, 'settings accepted; they take effect at the next window boundary');
+      return r;
+    });
   };
 }
