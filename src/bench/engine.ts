@@ -23,7 +23,7 @@ export interface BenchResult extends BenchCase {
 const BLOCK = 4096;
 
 /** Synthetic bench input: a coloured reference and a measurement through a decaying path plus noise. */
-function synthetic(n: number, taps: number): { x: Float64Array; d: Float64Array } {
+export function synthetic(n: number, taps: number): { x: Float64Array; d: Float64Array } {
   const rng = new GaussianNoise(20261201);
   const x = new Float64Array(n);
   const d = new Float64Array(n);

@@ -54,7 +54,7 @@ export function checkPortable(config: Config, file: string): void {
 }
 
 /** The engine's input scrub (non-finite to 0, clamp to +-INPUT_LIMIT), then the format's grid. */
-function toFormat(v: number, spec: AdaptiveSpec): number {
+export function toFormat(v: number, spec: AdaptiveSpec): number {
   const x = Number.isFinite(v) ? Math.max(-INPUT_LIMIT, Math.min(INPUT_LIMIT, v)) : 0;
   const fmt = formatOf(spec.arithmetic);
   return fmt === null ? Math.fround(x) : quantize(x, fmt, spec.rounding);
@@ -148,13 +148,13 @@ function makeVectors(spec: AdaptiveSpec, cfg: Config, file: string, seconds: num
 }
 
 /** Real values as the port's words: Qf integers, or binary32 values. */
-function words(v: ArrayLike<number>, spec: AdaptiveSpec): number[] {
+export function words(v: ArrayLike<number>, spec: AdaptiveSpec): number[] {
   const fmt = formatOf(spec.arithmetic);
   return Array.from(v, (w) => (fmt === null ? Math.fround(w) : Math.round(w * 2 ** fmt.fracBits)));
 }
 
 /** Interleaved columns as 4-byte little-endian words (int32, or binary32 bit patterns). */
-function packColumns(columns: Float64Array[], spec: AdaptiveSpec): Buffer {
+export function packColumns(columns: Float64Array[], spec: AdaptiveSpec): Buffer {
   const n = columns[0]!.length;
   const buf = Buffer.alloc(4 * n * columns.length);
   const fmt = formatOf(spec.arithmetic);

@@ -27,6 +27,18 @@ describe('tapwarden bench', () => {
     }
   });
 
+  it('q15, q31 and float32 (LMS and NLMS, odd tap counts) run beside the C port, checked bit for bit before it is timed', () => {
+    for (const [arithmetic, algorithm, taps] of [['q15', 'nlms', '33'], ['q31', 'lms', '17'], ['float32', 'nlms', '31']]) {
+      const r = cli(['bench', '--arithmetic', arithmetic!, '--algorithm', algorithm!, '--taps', taps!, '--seconds', '0.2', '--json']);
+      expect(r.status, r.stderr).toBe(0);
+      const o = JSON.parse(r.stdout);
+      // A row whose port differed from tapwarden would carry cSkipped instead of figures.
+      expect(o.cSkipped, arithmetic).toBeUndefined();
+      expect(o.cSamplesPerSecond).toBeGreaterThan(0);
+      expect(o.ratioToC).toBeGreaterThan(0);
+    }
+  });
+
   it('bad options: one line naming what is allowed', () => {
     const r = cli(['bench', '--arithmetic', 'q7']);
     expect(r.status).toBe(2);

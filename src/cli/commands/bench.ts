@@ -1,4 +1,5 @@
 import { benchEngine, type BenchCase } from '../../bench/engine.js';
+import { PORT_FLAGS, runPortReference } from '../../bench/portReference.js';
 import { C_FLAGS, buildCReference, numpyAvailable, runCReference, runNumpyReference, type ReferenceResult } from '../../bench/references.js';
 import { ALGORITHMS, ARITHMETICS, type Algorithm, type Arithmetic } from '../../dsp/types.js';
 import { TapwardenError } from '../../errors.js';
@@ -9,6 +10,7 @@ const DEFAULT_ROWS: Array<Pick<BenchCase, 'algorithm' | 'arithmetic' | 'constrai
   { algorithm: 'nlms', arithmetic: 'float64' },
   { algorithm: 'nlms', arithmetic: 'q15' },
   { algorithm: 'nlms', arithmetic: 'q31' },
+  { algorithm: 'nlms', arithmetic: 'float32' },
   { algorithm: 'pbfdaf', arithmetic: 'float64', constrained: false },
   { algorithm: 'pbfdaf', arithmetic: 'float64', constrained: true },
 ];
@@ -44,9 +46,11 @@ export const bench: Command = {
 Runs the whole dual path (adaptive and clean filters, statistics, supervisor) on synthetic data
 and reports samples per second and the real-time factor at the given rate. With no algorithm,
 taps or arithmetic it prints a table over 64, 256, 1024 and 4096 taps for NLMS in float64, q15
-and q31 and for the partitioned frequency-domain filter. NLMS float64 rows also run the C
+q31 and float32 and for the partitioned frequency-domain filter. NLMS float64 rows also run the C
 reference (bench/c, built with ${C_FLAGS.join(' ')} when a compiler is present) and, where
-python3 has numpy, the per-sample numpy script (bench/numpy_nlms.py), in the same run.
+python3 has numpy, the per-sample numpy script (bench/numpy_nlms.py), in the same run. q15, q31
+and float32 rows run the C port 'tapwarden freeze' generates (the same operator sequence, built
+with ${PORT_FLAGS.join(' ')}), after checking it reproduces tapwarden bit for bit.
 
 Options:
   --algorithm A   lms, nlms or pbfdaf
@@ -96,9 +100,14 @@ Options:
         const r = benchEngine({ ...row, taps: L, rate, seconds, blockSize: block ?? 256 });
         let cRef: ReferenceResult | null = null;
         let npRef: ReferenceResult | null = null;
+        let cSkipped: string | null = null;
         if (row.algorithm === 'nlms' && row.arithmetic === 'float64') {
           if ('binary' in c) cRef = runCReference(c.binary, L, seconds, rate);
           if (numpy) npRef = runNumpyReference(L, Math.min(seconds, 1), rate);
+        } else if (row.algorithm !== 'pbfdaf' && row.arithmetic !== 'float64') {
+          const p = runPortReference({ ...row, taps: L, rate, seconds });
+          if ('skipped' in p) cSkipped = p.skipped;
+          else cRef = p;
         }
         const name = row.algorithm === 'pbfdaf' ? `pbfdaf N=${block} ${row.constrained === false ? 'unconstr.' : 'constr.'}` : row.algorithm;
         const out = {
@@ -110,6 +119,7 @@ Options:
           samplesPerSecond: Math.round(r.samplesPerSecond),
           realtimeFactor: +r.realtimeFactor.toFixed(2),
           ...(cRef ? { cSamplesPerSecond: Math.round(cRef.samplesPerSecond), cRealtimeFactor: +cRef.realtimeFactor.toFixed(2), ratioToC: +(r.samplesPerSecond / cRef.samplesPerSecond).toFixed(3) } : {}),
+          ...(cSkipped ? { cSkipped } : {}),
           ...(npRef ? { numpyRealtimeFactor: +npRef.realtimeFactor.toFixed(2), ratioToNumpy: +(r.samplesPerSecond / npRef.samplesPerSecond).toFixed(1) } : {}),
         };
         results.push(out);
