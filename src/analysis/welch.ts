@@ -5,6 +5,11 @@ export function spectrumSegment(rate: number): number {
   return Math.min(8192, Math.max(256, 2 ** Math.ceil(Math.log2(rate / 8))));
 }
 
+/** The periodic Hann window of length N (what scipy's get_window('hann', N) gives). */
+function periodicHann(N: number): Float64Array {
+  return Float64Array.from({ length: N }, (_, i) => 0.5 - 0.5 * Math.cos((2 * Math.PI * i) / N));
+}
+
 /**
  * Welch's averaged periodogram, accumulated as samples stream past: Hann-windowed segments with
  * 50 % overlap, one-sided, in full-scale^2 per hertz, so that integrating it over frequency gives
@@ -26,14 +31,8 @@ export class WelchPsd {
     readonly sampleRate: number,
   ) {
     this.fft = new FFT(segmentLength);
-    this.window = new Float64Array(segmentLength);
-    let wp = 0;
-    for (let i = 0; i < segmentLength; i++) {
-      const w = 0.5 - 0.5 * Math.cos((2 * Math.PI * i) / segmentLength); // periodic Hann
-      this.window[i] = w;
-      wp += w * w;
-    }
-    this.windowPower = wp;
+    this.window = periodicHann(segmentLength);
+    this.windowPower = this.window.reduce((a, w) => a + w * w, 0);
     this.segment = new Float64Array(segmentLength);
     this.frame = new Float64Array(segmentLength);
     this.spectrum = new Float64Array(2 * segmentLength);
@@ -103,7 +102,7 @@ export class WelchCross {
   ) {
     const N = segmentLength;
     this.fft = new FFT(N);
-    this.window = Float64Array.from({ length: N }, (_, i) => 0.5 - 0.5 * Math.cos((2 * Math.PI * i) / N));
+    this.window = periodicHann(N);
     this.segX = new Float64Array(N);
     this.segY = new Float64Array(N);
     this.frame = new Float64Array(N);

@@ -5,10 +5,9 @@ import { tmpdir } from 'node:os';
 import { join } from 'node:path';
 import { loadConfig } from '../config/load.js';
 import { formatOf } from '../dsp/fixedKernel.js';
-import { createAdaptiveKernel, createFirKernel } from '../dsp/kernels.js';
 import type { AdaptiveSpec } from '../dsp/types.js';
 import { header, source } from '../freeze/cport.js';
-import { packColumns, toFormat } from '../freeze/freeze.js';
+import { packColumns, portOutputs, toFormat } from '../freeze/freeze.js';
 import { makeDirectory } from '../io/files.js';
 import { VERSION } from '../version.js';
 import type { BenchCase } from './engine.js';
@@ -103,17 +102,7 @@ export function runPortReference(c: BenchCase): ReferenceResult | { skipped: str
   const scale = fmt === null ? 1 : 2 ** -fmt.fracBits;
   const x = Float64Array.from(raw.x, (v) => toFormat(v, spec) * scale);
   const d = Float64Array.from(raw.d, (v) => toFormat(v, spec) * scale);
-  const adaptive = createAdaptiveKernel(spec);
-  const fir = createFirKernel(spec);
-  const y = new Float64Array(n);
-  const ea = new Float64Array(n);
-  const ec = new Float64Array(n);
-  for (let i = 0; i < n; i += handoffEvery) {
-    const end = Math.min(n, i + handoffEvery);
-    adaptive.run(x, d, null, y, ea, i, end);
-    fir.run(x, d, y, ec, i, end);
-    if (end - i === handoffEvery) adaptive.copyTo(fir);
-  }
+  const { ea, ec } = portOutputs(spec, x, d, new Float64Array(spec.taps), handoffEvery);
   const files = {
     h: header({ spec, weights: new Float64Array(spec.taps), version: VERSION }),
     c: source({ spec, weights: new Float64Array(spec.taps), version: VERSION }),

@@ -82,6 +82,29 @@ function reachedWeights(config: Config, file: string): { weights: Float64Array; 
   }
 }
 
+/**
+ * What the port must output on x, d (already on the format's grid), from the kernels replay runs
+ * (held bit-exact to the reference kernels by the tests): both paths from `initial` weights, a
+ * handoff after every `handoffEvery` samples, as check.c and the bench drive the port.
+ */
+export function portOutputs(spec: AdaptiveSpec, x: Float64Array, d: Float64Array, initial: ArrayLike<number>, handoffEvery: number) {
+  const n = x.length;
+  const adaptive = createAdaptiveKernel(spec);
+  const fir = createFirKernel(spec);
+  adaptive.setWeights(initial);
+  fir.setWeights(initial);
+  const y = new Float64Array(n);
+  const ea = new Float64Array(n);
+  const ec = new Float64Array(n);
+  for (let i = 0; i < n; i += handoffEvery) {
+    const end = Math.min(n, i + handoffEvery);
+    adaptive.run(x, d, null, y, ea, i, end);
+    fir.run(x, d, y, ec, i, end);
+    if (end - i === handoffEvery) adaptive.copyTo(fir);
+  }
+  return { adaptive, fir, ea, ec };
+}
+
 interface Vectors {
   x: Float64Array;
   d: Float64Array;
@@ -118,19 +141,7 @@ function makeVectors(spec: AdaptiveSpec, cfg: Config, file: string, seconds: num
         v[i] = q * scale;
       }
     }
-    const adaptive = createAdaptiveKernel(spec);
-    const fir = createFirKernel(spec);
-    adaptive.setWeights(initial);
-    fir.setWeights(initial);
-    const y = new Float64Array(n);
-    const ea = new Float64Array(n);
-    const ec = new Float64Array(n);
-    for (let i = 0; i < n; i += handoffEvery) {
-      const end = Math.min(n, i + handoffEvery);
-      adaptive.run(x, d, null, y, ea, i, end);
-      fir.run(x, d, y, ec, i, end);
-      if (end - i === handoffEvery) adaptive.copyTo(fir);
-    }
+    const { adaptive, fir, ea, ec } = portOutputs(spec, x, d, initial, handoffEvery);
     return {
       x,
       d,
