@@ -164,6 +164,8 @@ export class ServiceMetrics implements RunSink {
     }
     if (e.type === 'settings') {
       this.settingsChanges.inc();
+      const bound = e.changes['supervisor.maxWeightMean'];
+      if (bound !== undefined) this.weightMeanLimit.set(bound.to as number);
       return;
     }
     if (e.reason === 'supervisor' || e.reason === 'forced') this.accepted.labels(e.reason).inc();

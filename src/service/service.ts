@@ -7,7 +7,6 @@ import { engineSettingsOf } from '../engine/settings.js';
 import { TapwardenError, oneLine } from '../errors.js';
 import { WavReader } from '../io/wav/reader.js';
 import { checkChannels, checkLmsStep, scanReference, type ReferenceScan } from '../run/preflight.js';
-import { liveSettings, liveView } from './settings.js';
 import type { DecisionRecord, RunEvent } from '../run/record.js';
 import type { RunSink } from '../run/run.js';
 import { VERSION } from '../version.js';
@@ -19,6 +18,7 @@ import { controlPlugin } from './plugins/control.js';
 import { StatusFeed } from './plugins/feed.js';
 import { metricsPlugin } from './plugins/metrics.js';
 import { statusPlugin } from './plugins/status.js';
+import { liveSettings, liveView } from './settings.js';
 import { ServiceStatus } from './status.js';
 import { Telemetry } from './telemetry.js';
 
