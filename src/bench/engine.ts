@@ -21,6 +21,8 @@ export interface BenchResult extends BenchCase {
 }
 
 const BLOCK = 4096;
+/** Blocks run before timing starts (so the JavaScript and WebAssembly tiers have optimized the hot code). */
+export const WARM_BLOCKS = 48;
 
 /** Synthetic bench input: a coloured reference and a measurement through a decaying path plus noise. */
 export function synthetic(n: number, taps: number): { x: Float64Array; d: Float64Array } {
@@ -43,12 +45,10 @@ export function synthetic(n: number, taps: number): { x: Float64Array; d: Float6
 
 /**
  * The whole dual path (adaptive kernel, clean kernel, statistics, supervisor) on synthetic data:
- * a warm-up of at least one second of audio and 300 ms of wall time (so that the JavaScript and
- * WebAssembly tiers have optimized the hot code), then `seconds` timed. Returns samples per
- * second of wall time.
+ * a warm-up of WARM_BLOCKS blocks of 4,096 samples (counted, not timed), then `seconds` timed.
+ * Returns samples per second of wall time.
  */
 export function benchEngine(c: BenchCase): BenchResult {
-  const warm = c.rate;
   const n = Math.round(c.seconds * c.rate);
   const { x, d } = synthetic(BLOCK * 4, c.taps);
   // The embedded default config, with the case's filter: the same settings a user would run.
@@ -72,9 +72,7 @@ export function benchEngine(c: BenchCase): BenchResult {
       engine.process(x.subarray(at * BLOCK), d.subarray(at * BLOCK), clean, adaptive, m);
     }
   };
-  const warmStart = process.hrtime.bigint();
-  do feed(warm);
-  while (Number(process.hrtime.bigint() - warmStart) < 300e6);
+  feed(WARM_BLOCKS * BLOCK);
   const t0 = process.hrtime.bigint();
   feed(n);
   const seconds = Number(process.hrtime.bigint() - t0) / 1e9;

@@ -39,6 +39,26 @@ describe('tapwarden bench', () => {
     }
   });
 
+  it('--repeat gives medians with their range; --block-size and --constrained choose the pbfdaf form', () => {
+    const r = cli(['bench', '--algorithm', 'pbfdaf', '--taps', '512', '--block-size', '64', '--constrained', 'false', '--seconds', '0.1', '--repeat', '3', '--json']);
+    expect(r.status, r.stderr).toBe(0);
+    const o = JSON.parse(r.stdout);
+    expect(o).toMatchObject({ algorithm: 'pbfdaf', blockSize: 64, constrained: false, repeat: 3 });
+    const [lo, hi] = o.samplesPerSecondRange;
+    expect(lo).toBeLessThanOrEqual(o.samplesPerSecond);
+    expect(hi).toBeGreaterThanOrEqual(o.samplesPerSecond);
+    for (const [args, message] of [
+      [['--block-size', '128'], /--block-size and --constrained are for pbfdaf/],
+      [['--algorithm', 'pbfdaf', '--taps', '1024', '--block-size', '100'], /--block-size 100 is not allowed; allowed: a power of two from 16 to 4096 that divides --taps/],
+      [['--algorithm', 'pbfdaf', '--constrained', 'maybe'], /--constrained maybe is not allowed; allowed: true, false/],
+      [['--repeat', '0'], /--repeat 0 is not allowed; allowed: a positive integer/],
+    ] as [string[], RegExp][]) {
+      const bad = cli(['bench', ...args]);
+      expect(bad.status).toBe(2);
+      expect(bad.stderr).toMatch(message);
+    }
+  });
+
   it('bad options: one line naming what is allowed', () => {
     const r = cli(['bench', '--arithmetic', 'q7']);
     expect(r.status).toBe(2);

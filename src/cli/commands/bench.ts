@@ -21,6 +21,13 @@ function choice<T extends string>(key: string, value: string | undefined, allowe
   return value as T;
 }
 
+/** The median of a list (the middle value, or the mean of the two middle ones). */
+function median(v: readonly number[]): number {
+  const s = [...v].sort((a, b) => a - b);
+  const m = s.length >> 1;
+  return s.length % 2 ? s[m]! : (s[m - 1]! + s[m]!) / 2;
+}
+
 function positive(key: string, value: string | undefined, fallback: number, integer: boolean): number {
   if (value === undefined) return fallback;
   const v = Number(value);
@@ -41,7 +48,8 @@ function blockFor(taps: number): number | null {
 
 export const bench: Command = {
   summary: "measure the engine's throughput on this machine, beside a C reference",
-  usage: `Usage: tapwarden bench [--algorithm A] [--taps N] [--arithmetic X] [--rate HZ] [--seconds S] [--json]
+  usage: `Usage: tapwarden bench [--algorithm A] [--taps N] [--arithmetic X] [--block-size N] [--constrained true|false]
+                       [--rate HZ] [--seconds S] [--repeat N] [--json]
 
 Runs the whole dual path (adaptive and clean filters, statistics, supervisor) on synthetic data
 and reports samples per second and the real-time factor at the given rate. With no algorithm,
@@ -56,6 +64,9 @@ Options:
   --algorithm A   lms, nlms or pbfdaf
   --taps N        filter length
   --arithmetic X  float64, float32, q15 or q31
+  --block-size N  pbfdaf partition length (default: the largest power of two up to min(2048, L/2) dividing L)
+  --constrained B pbfdaf: true or false (default: both rows in the table, true for one case)
+  --repeat N      measure each row N times; figures are medians, with the range (default 1)
   --rate HZ       sample rate for the real-time factor (default 48000)
   --seconds S     seconds of audio per measurement (default 3)
   --json          JSON on stdout (an object, or an array for the table)
@@ -66,6 +77,9 @@ Options:
     arithmetic: { type: 'string' },
     rate: { type: 'string' },
     seconds: { type: 'string' },
+    'block-size': { type: 'string' },
+    constrained: { type: 'string' },
+    repeat: { type: 'string' },
     json: { type: 'boolean' },
   },
   positionals: [0, 0],
@@ -75,13 +89,25 @@ Options:
     const tapsArg = values['taps'] as string | undefined;
     const rate = positive('rate', values['rate'] as string | undefined, 48000, true);
     const seconds = positive('seconds', values['seconds'] as string | undefined, 3, false);
+    const repeat = positive('repeat', values['repeat'] as string | undefined, 1, true);
+    const blockArg = values['block-size'] as string | undefined;
+    const blockSize = blockArg === undefined ? undefined : positive('block-size', blockArg, 0, true);
+    const constrainedArg = choice<'true' | 'false'>('constrained', values['constrained'] as string | undefined, ['true', 'false']);
     const single = algorithm !== undefined || arithmetic !== undefined || tapsArg !== undefined;
     const taps = tapsArg === undefined ? DEFAULT_TAPS : [positive('taps', tapsArg, 0, true)];
-    const rows = single ? [{ algorithm: algorithm ?? 'nlms', arithmetic: arithmetic ?? 'float64' }] : DEFAULT_ROWS;
+    const rows: Array<Pick<BenchCase, 'algorithm' | 'arithmetic' | 'constrained'>> = single
+      ? [{ algorithm: algorithm ?? 'nlms', arithmetic: arithmetic ?? 'float64', ...(constrainedArg === undefined ? {} : { constrained: constrainedArg === 'true' }) }]
+      : DEFAULT_ROWS;
+    if ((blockSize !== undefined || constrainedArg !== undefined) && !rows.every((r) => r.algorithm === 'pbfdaf')) {
+      throw new TapwardenError('TW_ERR_USAGE', { detail: 'bench: --block-size and --constrained are for pbfdaf; allowed with --algorithm pbfdaf' });
+    }
+    if (blockSize !== undefined && (![16, 32, 64, 128, 256, 512, 1024, 2048, 4096].includes(blockSize) || taps.some((L) => L % blockSize !== 0))) {
+      throw new TapwardenError('TW_ERR_USAGE', { detail: `bench: --block-size ${blockSize} is not allowed; allowed: a power of two from 16 to 4096 that divides --taps` });
+    }
     if (rows.some((r) => r.algorithm === 'pbfdaf' && r.arithmetic !== 'float64')) {
       throw new TapwardenError('TW_ERR_USAGE', { detail: 'bench: pbfdaf runs in float64 only' });
     }
-    const bad = rows.some((r) => r.algorithm === 'pbfdaf') ? taps.find((L) => blockFor(L) === null) : undefined;
+    const bad = rows.some((r) => r.algorithm === 'pbfdaf') && blockSize === undefined ? taps.find((L) => blockFor(L) === null) : undefined;
     if (bad !== undefined) {
       throw new TapwardenError('TW_ERR_USAGE', { detail: `bench: pbfdaf needs taps divisible by a block size of at least 16; ${bad} is not` });
     }
@@ -90,24 +116,36 @@ Options:
     const json = values['json'] === true;
     const results = [];
     if (!json) {
-      process.stdout.write(`tapwarden bench: dual path, ${rate} Hz, ${seconds} s of synthetic audio per row, one core\n`);
+      process.stdout.write(`tapwarden bench: dual path, ${rate} Hz, ${seconds} s of synthetic audio per row, one core${repeat > 1 ? `, medians of ${repeat} runs` : ''}\n`);
       if ('skipped' in c && single === false) process.stdout.write(`C reference skipped: ${c.skipped}\n`);
       process.stdout.write(`${'algorithm'.padEnd(22)}${'arith'.padEnd(9)}${'taps'.padStart(6)}${'samples/s'.padStart(13)}${'x real time'.padStart(13)}${'C x rt'.padStart(9)}${'tw/C'.padStart(7)}${'numpy x rt'.padStart(12)}${'tw/numpy'.padStart(10)}\n`);
     }
     for (const row of rows) {
       for (const L of taps) {
-        const block = blockFor(L);
-        const r = benchEngine({ ...row, taps: L, rate, seconds, blockSize: block ?? 256 });
+        const block = blockSize ?? blockFor(L);
+        const runs = Array.from({ length: repeat }, () => benchEngine({ ...row, taps: L, rate, seconds, blockSize: block ?? 256 }));
+        const speeds = runs.map((x) => x.samplesPerSecond);
+        const r = { ...runs[0]!, samplesPerSecond: median(speeds), realtimeFactor: median(speeds) / rate };
         let cRef: ReferenceResult | null = null;
         let npRef: ReferenceResult | null = null;
         let cSkipped: string | null = null;
+        const repeated = (one: () => ReferenceResult | null): ReferenceResult | null => {
+          const got = Array.from({ length: repeat }, one).filter((x): x is ReferenceResult => x !== null);
+          if (got.length === 0) return null;
+          const sps = median(got.map((x) => x.samplesPerSecond));
+          return { samplesPerSecond: sps, realtimeFactor: sps / rate };
+        };
         if (row.algorithm === 'nlms' && row.arithmetic === 'float64') {
-          if ('binary' in c) cRef = runCReference(c.binary, L, seconds, rate);
+          if ('binary' in c) cRef = repeated(() => runCReference(c.binary, L, seconds, rate));
           if (numpy) npRef = runNumpyReference(L, Math.min(seconds, 1), rate);
         } else if (row.algorithm !== 'pbfdaf' && row.arithmetic !== 'float64') {
-          const p = runPortReference({ ...row, taps: L, rate, seconds });
-          if ('skipped' in p) cSkipped = p.skipped;
-          else cRef = p;
+          let skipped: string | null = null;
+          cRef = repeated(() => {
+            const p = runPortReference({ ...row, taps: L, rate, seconds });
+            if ('skipped' in p) skipped = p.skipped;
+            return 'skipped' in p ? null : p;
+          });
+          cSkipped = cRef === null ? skipped : null;
         }
         const name = row.algorithm === 'pbfdaf' ? `pbfdaf N=${block} ${row.constrained === false ? 'unconstr.' : 'constr.'}` : row.algorithm;
         const out = {
@@ -117,6 +155,7 @@ Options:
           arithmetic: r.arithmetic,
           rate,
           samplesPerSecond: Math.round(r.samplesPerSecond),
+          ...(repeat > 1 ? { repeat, samplesPerSecondRange: [Math.round(Math.min(...speeds)), Math.round(Math.max(...speeds))] } : {}),
           realtimeFactor: +r.realtimeFactor.toFixed(2),
           ...(cRef ? { cSamplesPerSecond: Math.round(cRef.samplesPerSecond), cRealtimeFactor: +cRef.realtimeFactor.toFixed(2), ratioToC: +(r.samplesPerSecond / cRef.samplesPerSecond).toFixed(3) } : {}),
           ...(cSkipped ? { cSkipped } : {}),
