@@ -24,11 +24,14 @@ export class WelchPsd {
   private readonly spectrum: Float64Array;
   private readonly sum: Float64Array;
   private fill = 0;
+  private seen = 0;
   segments = 0;
 
+  /** stride k: average every k-th of the half-overlapping segments (2: segments that do not overlap). */
   constructor(
     readonly segmentLength: number,
     readonly sampleRate: number,
+    private readonly stride = 1,
   ) {
     this.fft = new FFT(segmentLength);
     this.window = periodicHann(segmentLength);
@@ -45,7 +48,7 @@ export class WelchPsd {
       const v = x[i]!;
       this.segment[this.fill++] = Number.isFinite(v) ? v : 0;
       if (this.fill === N) {
-        this.accumulate();
+        if (this.seen++ % this.stride === 0) this.accumulate();
         this.segment.copyWithin(0, N / 2);
         this.fill = N / 2;
       }
@@ -94,11 +97,14 @@ export class WelchCross {
   private readonly sxyRe: Float64Array;
   private readonly sxyIm: Float64Array;
   private fill = 0;
+  private seen = 0;
   segments = 0;
 
+  /** stride as in WelchPsd. */
   constructor(
     readonly segmentLength: number,
     readonly sampleRate: number,
+    private readonly stride = 1,
   ) {
     const N = segmentLength;
     this.fft = new FFT(N);
@@ -124,7 +130,7 @@ export class WelchCross {
       this.segX[this.fill] = Number.isFinite(a) ? a : 0;
       this.segY[this.fill++] = Number.isFinite(b) ? b : 0;
       if (this.fill === N) {
-        this.accumulate();
+        if (this.seen++ % this.stride === 0) this.accumulate();
         this.segX.copyWithin(0, N / 2);
         this.segY.copyWithin(0, N / 2);
         this.fill = N / 2;
@@ -152,17 +158,26 @@ export class WelchCross {
     this.segments++;
   }
 
-  /** Frequencies (Hz), the measurement's spectrum Syy (relative units) and the coherence per bin. */
-  result(): { frequencies: Float64Array; syy: Float64Array; coherence: Float64Array } {
+  /**
+   * Frequencies (Hz), the measurement's spectrum Syy (relative units), the coherence per bin, and
+   * the reference's one-sided PSD (full scale^2 / Hz, as WelchPsd gives it).
+   */
+  result(): { frequencies: Float64Array; syy: Float64Array; coherence: Float64Array; psdX: Float64Array } {
     const N = this.segmentLength;
     const bins = N / 2 + 1;
     const frequencies = Float64Array.from({ length: bins }, (_, k) => (k * this.sampleRate) / N);
     const coherence = new Float64Array(bins);
+    const psdX = new Float64Array(bins);
+    const windowPower = this.window.reduce((a, w) => a + w * w, 0);
+    if (this.segments > 0) {
+      const scale = 1 / (this.sampleRate * windowPower * this.segments);
+      for (let k = 0; k < bins; k++) psdX[k] = this.sxx[k]! * scale * (k === 0 || k === N / 2 ? 1 : 2);
+    }
     for (let k = 0; k < bins; k++) {
       const den = this.sxx[k]! * this.syy[k]!;
       coherence[k] = den > 0 ? Math.min(1, (this.sxyRe[k]! ** 2 + this.sxyIm[k]! ** 2) / den) : 0;
     }
-    return { frequencies, syy: Float64Array.from(this.syy), coherence };
+    return { frequencies, syy: Float64Array.from(this.syy), coherence, psdX };
   }
 }
 

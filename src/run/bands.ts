@@ -55,10 +55,11 @@ export class BandSink implements RunSink {
     private readonly latency: number,
     maxBlock: number,
   ) {
-    this.clean = new WelchPsd(segment, rate);
-    this.desiredPsd = new WelchPsd(segment, rate);
-    this.diff = withTruth ? new WelchPsd(segment, rate) : null;
-    this.truthPsd = withTruth ? new WelchPsd(segment, rate) : null;
+    // Every second segment, as the replay's cross-spectra (no overlap).
+    this.clean = new WelchPsd(segment, rate, 2);
+    this.desiredPsd = new WelchPsd(segment, rate, 2);
+    this.diff = withTruth ? new WelchPsd(segment, rate, 2) : null;
+    this.truthPsd = withTruth ? new WelchPsd(segment, rate, 2) : null;
     this.delay = new Float64Array(Math.max(1, latency));
     this.scratch = new Float64Array(maxBlock);
     this.delayed = new Float64Array(maxBlock);
