@@ -13,7 +13,7 @@ import { cli, tmpDir } from '../helpers/tools.js';
 // what it leaves is the wanted signal: its signal-to-distortion ratio is high.
 
 const dir = tmpDir('tapwarden-bands-');
-afterAll(() => { if (!process.env['KEEP']) rmSync(dir, { recursive: true, force: true }); });
+afterAll(() => rmSync(dir, { recursive: true, force: true }));
 
 describe('replay per octave band: coherence bound, achieved cancellation, survival of the truth', () => {
   it('a stationary path with a wanted signal in the 1 kHz octave', () => {
