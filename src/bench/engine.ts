@@ -10,6 +10,8 @@ export interface BenchCase {
   readonly arithmetic: Arithmetic;
   readonly rate: number;
   readonly seconds: number;
+  /** Dual paths run side by side on the one core, each on its own channel pair (default 1). */
+  readonly channels?: number;
   /** pbfdaf only. */
   readonly blockSize?: number;
   readonly constrained?: boolean;
@@ -62,14 +64,15 @@ export function benchEngine(c: BenchCase): BenchResult {
       ...(c.constrained === undefined ? {} : { constrained: c.constrained }),
     },
   });
-  const engine = new DualPathEngine(engineSettingsOf(config, c.rate));
+  const channels = c.channels ?? 1;
+  const engines = Array.from({ length: channels }, () => new DualPathEngine(engineSettingsOf(config, c.rate)));
   const clean = new Float64Array(BLOCK);
   const adaptive = new Float64Array(BLOCK);
   const feed = (count: number) => {
     for (let done = 0; done < count; done += BLOCK) {
       const m = Math.min(BLOCK, count - done);
       const at = (done / BLOCK) % 4;
-      engine.process(x.subarray(at * BLOCK), d.subarray(at * BLOCK), clean, adaptive, m);
+      for (let k = 0; k < channels; k++) engines[k]!.process(x.subarray(at * BLOCK), d.subarray(at * BLOCK), clean, adaptive, m);
     }
   };
   feed(WARM_BLOCKS * BLOCK);

@@ -59,6 +59,15 @@ describe('tapwarden bench', () => {
     }
   });
 
+  it('--channels N runs N dual paths on the core, without the one-channel references', () => {
+    const r = cli(['bench', '--taps', '128', '--seconds', '0.2', '--channels', '4', '--json']);
+    expect(r.status, r.stderr).toBe(0);
+    const four = JSON.parse(r.stdout);
+    expect(four).toMatchObject({ channels: 4, cSkipped: 'references run one channel; this row runs several' });
+    expect(four.realtimeFactor).toBeGreaterThan(0);
+    expect(cli(['bench', '--channels', '0']).stderr).toMatch(/--channels 0 is not allowed; allowed: a positive integer/);
+  });
+
   it('bad options: one line naming what is allowed', () => {
     const r = cli(['bench', '--arithmetic', 'q7']);
     expect(r.status).toBe(2);

@@ -49,7 +49,7 @@ function blockFor(taps: number): number | null {
 export const bench: Command = {
   summary: "measure the engine's throughput on this machine, beside a C reference",
   usage: `Usage: tapwarden bench [--algorithm A] [--taps N] [--arithmetic X] [--block-size N] [--constrained true|false]
-                       [--rate HZ] [--seconds S] [--repeat N] [--json]
+                       [--channels N] [--rate HZ] [--seconds S] [--repeat N] [--json]
 
 Runs the whole dual path (adaptive and clean filters, statistics, supervisor) on synthetic data
 and reports samples per second and the real-time factor at the given rate. With no algorithm,
@@ -67,6 +67,8 @@ Options:
   --block-size N  pbfdaf partition length (default: the largest power of two up to min(2048, L/2) dividing L)
   --constrained B pbfdaf: true or false (default: both rows in the table, true for one case)
   --repeat N      measure each row N times; figures are medians, with the range (default 1)
+  --channels N    run N dual paths (N measurement channels) on the one core: x real time is for
+                  all of them together (above 1: the core keeps up with N); no references then
   --rate HZ       sample rate for the real-time factor (default 48000)
   --seconds S     seconds of audio per measurement (default 3)
   --json          JSON on stdout (an object, or an array for the table)
@@ -80,6 +82,7 @@ Options:
     'block-size': { type: 'string' },
     constrained: { type: 'string' },
     repeat: { type: 'string' },
+    channels: { type: 'string' },
     json: { type: 'boolean' },
   },
   positionals: [0, 0],
@@ -90,6 +93,7 @@ Options:
     const rate = positive('rate', values['rate'] as string | undefined, 48000, true);
     const seconds = positive('seconds', values['seconds'] as string | undefined, 3, false);
     const repeat = positive('repeat', values['repeat'] as string | undefined, 1, true);
+    const channels = positive('channels', values['channels'] as string | undefined, 1, true);
     const blockArg = values['block-size'] as string | undefined;
     const blockSize = blockArg === undefined ? undefined : positive('block-size', blockArg, 0, true);
     const constrainedArg = choice<'true' | 'false'>('constrained', values['constrained'] as string | undefined, ['true', 'false']);
@@ -123,7 +127,7 @@ Options:
     for (const row of rows) {
       for (const L of taps) {
         const block = blockSize ?? blockFor(L);
-        const runs = Array.from({ length: repeat }, () => benchEngine({ ...row, taps: L, rate, seconds, blockSize: block ?? 256 }));
+        const runs = Array.from({ length: repeat }, () => benchEngine({ ...row, taps: L, rate, seconds, channels, blockSize: block ?? 256 }));
         const speeds = runs.map((x) => x.samplesPerSecond);
         const r = { ...runs[0]!, samplesPerSecond: median(speeds), realtimeFactor: median(speeds) / rate };
         let cRef: ReferenceResult | null = null;
@@ -135,7 +139,9 @@ Options:
           const sps = median(got.map((x) => x.samplesPerSecond));
           return { samplesPerSecond: sps, realtimeFactor: sps / rate };
         };
-        if (row.algorithm === 'nlms' && row.arithmetic === 'float64') {
+        if (channels > 1) {
+          cSkipped = 'references run one channel; this row runs several';
+        } else if (row.algorithm === 'nlms' && row.arithmetic === 'float64') {
           if ('binary' in c) cRef = repeated(() => runCReference(c.binary, L, seconds, rate));
           if (numpy) npRef = runNumpyReference(L, Math.min(seconds, 1), rate);
         } else if (row.algorithm !== 'pbfdaf' && row.arithmetic !== 'float64') {
@@ -147,13 +153,14 @@ Options:
           });
           cSkipped = cRef === null ? skipped : null;
         }
-        const name = row.algorithm === 'pbfdaf' ? `pbfdaf N=${block} ${row.constrained === false ? 'unconstr.' : 'constr.'}` : row.algorithm;
+        const name = (row.algorithm === 'pbfdaf' ? `pbfdaf N=${block} ${row.constrained === false ? 'unconstr.' : 'constr.'}` : row.algorithm) + (channels > 1 ? ` x${channels}` : '');
         const out = {
           algorithm: r.algorithm,
           ...(r.algorithm === 'pbfdaf' ? { blockSize: r.blockSize, constrained: r.constrained } : {}),
           taps: L,
           arithmetic: r.arithmetic,
           rate,
+          ...(channels > 1 ? { channels } : {}),
           samplesPerSecond: Math.round(r.samplesPerSecond),
           ...(repeat > 1 ? { repeat, samplesPerSecondRange: [Math.round(Math.min(...speeds)), Math.round(Math.max(...speeds))] } : {}),
           realtimeFactor: +r.realtimeFactor.toFixed(2),
