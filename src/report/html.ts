@@ -29,8 +29,8 @@ export interface ReportInput {
 }
 
 const require = createRequire(import.meta.url);
-const UPLOT_JS = readFileSync(require.resolve('uplot/dist/uPlot.iife.min.js'), 'utf8');
-const UPLOT_CSS = readFileSync(require.resolve('uplot/dist/uPlot.min.css'), 'utf8');
+export const UPLOT_JS = readFileSync(require.resolve('uplot/dist/uPlot.iife.min.js'), 'utf8');
+export const UPLOT_CSS = readFileSync(require.resolve('uplot/dist/uPlot.min.css'), 'utf8');
 
 /**
  * Decision markers, at most one accepted and one refused per display column (the refused one with

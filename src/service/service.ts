@@ -17,6 +17,7 @@ import { SnapshotSink, SnapshotWriter, incompatibility, readSnapshot } from './p
 import { controlPlugin } from './plugins/control.js';
 import { StatusFeed } from './plugins/feed.js';
 import { metricsPlugin } from './plugins/metrics.js';
+import { pagePlugin } from './plugins/page.js';
 import { statusPlugin } from './plugins/status.js';
 import { liveSettings, liveView } from './settings.js';
 import { ServiceStatus } from './status.js';
@@ -189,6 +190,7 @@ export async function startService(config: Config, configFile: string): Promise<
     }),
     controlPlugin(token, control, (body) => changeSettings(body)),
     feed.plugin,
+    pagePlugin,
   ]);
 
   let address: string;

@@ -30,10 +30,11 @@ export async function stopAll(): Promise<void> {
   await Promise.all([...running].map((s) => s.stop()));
 }
 
-/** Starts `tapwarden serve` with the given YAML (port 0) and waits until it listens. */
+/** Starts `tapwarden serve` with the given YAML (port 0 unless it has an http section) and waits until it listens. */
 export async function serveWith(dir: string, yaml: string, env: Record<string, string> = {}): Promise<Served> {
   const config = join(dir, `serve-${Date.now()}-${Math.random().toString(36).slice(2)}.yaml`);
-  writeFileSync(config, `http:\n  port: 0\n${yaml}`);
+  // Port 0 (any free port) unless the YAML sets its own http section.
+  writeFileSync(config, /^http:/m.test(yaml) ? yaml : `http:\n  port: 0\n${yaml}`);
   const proc = spawn(process.execPath, [CLI, 'serve', '--config', config], { env: { ...process.env, ...env }, stdio: ['ignore', 'pipe', 'pipe'] });
   const logs: Array<Record<string, unknown>> = [];
   const notJson: string[] = [];
