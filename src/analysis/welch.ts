@@ -5,9 +5,21 @@ export function spectrumSegment(rate: number): number {
   return Math.min(8192, Math.max(256, 2 ** Math.ceil(Math.log2(rate / 8))));
 }
 
-/** The periodic Hann window of length N (what scipy's get_window('hann', N) gives). */
-function periodicHann(N: number): Float64Array {
-  return Float64Array.from({ length: N }, (_, i) => 0.5 - 0.5 * Math.cos((2 * Math.PI * i) / N));
+/** The periodic Hann window of length N (what scipy's get_window('hann', N) gives) and its power sum. */
+function periodicHann(N: number): { window: Float64Array; power: number } {
+  const window = Float64Array.from({ length: N }, (_, i) => 0.5 - 0.5 * Math.cos((2 * Math.PI * i) / N));
+  return { window, power: window.reduce((a, w) => a + w * w, 0) };
+}
+
+/** Bin frequencies of an N-point transform, and summed |X|^2 scaled to a one-sided PSD (full scale^2 / Hz). */
+function oneSided(sum: Float64Array, N: number, rate: number, windowPower: number, segments: number): { frequencies: Float64Array; psd: Float64Array } {
+  const bins = N / 2 + 1;
+  const frequencies = Float64Array.from({ length: bins }, (_, k) => (k * rate) / N);
+  const psd = new Float64Array(bins);
+  if (segments === 0) return { frequencies, psd };
+  const scale = 1 / (rate * windowPower * segments);
+  for (let k = 0; k < bins; k++) psd[k] = sum[k]! * scale * (k === 0 || k === N / 2 ? 1 : 2);
+  return { frequencies, psd };
 }
 
 /**
@@ -34,8 +46,7 @@ export class WelchPsd {
     private readonly stride = 1,
   ) {
     this.fft = new FFT(segmentLength);
-    this.window = periodicHann(segmentLength);
-    this.windowPower = this.window.reduce((a, w) => a + w * w, 0);
+    ({ window: this.window, power: this.windowPower } = periodicHann(segmentLength));
     this.segment = new Float64Array(segmentLength);
     this.frame = new Float64Array(segmentLength);
     this.spectrum = new Float64Array(2 * segmentLength);
@@ -65,14 +76,7 @@ export class WelchPsd {
 
   /** Frequencies (Hz) and the one-sided PSD (full scale^2 / Hz); empty before one segment. */
   result(): { frequencies: Float64Array; psd: Float64Array } {
-    const N = this.segmentLength;
-    const bins = N / 2 + 1;
-    const frequencies = Float64Array.from({ length: bins }, (_, k) => (k * this.sampleRate) / N);
-    const psd = new Float64Array(bins);
-    if (this.segments === 0) return { frequencies, psd };
-    const scale = 1 / (this.sampleRate * this.windowPower * this.segments);
-    for (let k = 0; k < bins; k++) psd[k] = this.sum[k]! * scale * (k === 0 || k === N / 2 ? 1 : 2);
-    return { frequencies, psd };
+    return oneSided(this.sum, this.segmentLength, this.sampleRate, this.windowPower, this.segments);
   }
 }
 
@@ -87,6 +91,7 @@ export class WelchPsd {
 export class WelchCross {
   private readonly fft: FFT;
   private readonly window: Float64Array;
+  private readonly windowPower: number;
   private readonly segX: Float64Array;
   private readonly segY: Float64Array;
   private readonly frame: Float64Array;
@@ -108,7 +113,7 @@ export class WelchCross {
   ) {
     const N = segmentLength;
     this.fft = new FFT(N);
-    this.window = periodicHann(N);
+    ({ window: this.window, power: this.windowPower } = periodicHann(N));
     this.segX = new Float64Array(N);
     this.segY = new Float64Array(N);
     this.frame = new Float64Array(N);
@@ -163,16 +168,9 @@ export class WelchCross {
    * the reference's one-sided PSD (full scale^2 / Hz, as WelchPsd gives it).
    */
   result(): { frequencies: Float64Array; syy: Float64Array; coherence: Float64Array; psdX: Float64Array } {
-    const N = this.segmentLength;
-    const bins = N / 2 + 1;
-    const frequencies = Float64Array.from({ length: bins }, (_, k) => (k * this.sampleRate) / N);
+    const { frequencies, psd: psdX } = oneSided(this.sxx, this.segmentLength, this.sampleRate, this.windowPower, this.segments);
+    const bins = frequencies.length;
     const coherence = new Float64Array(bins);
-    const psdX = new Float64Array(bins);
-    const windowPower = this.window.reduce((a, w) => a + w * w, 0);
-    if (this.segments > 0) {
-      const scale = 1 / (this.sampleRate * windowPower * this.segments);
-      for (let k = 0; k < bins; k++) psdX[k] = this.sxx[k]! * scale * (k === 0 || k === N / 2 ? 1 : 2);
-    }
     for (let k = 0; k < bins; k++) {
       const den = this.sxx[k]! * this.syy[k]!;
       coherence[k] = den > 0 ? Math.min(1, (this.sxyRe[k]! ** 2 + this.sxyIm[k]! ** 2) / den) : 0;
@@ -181,7 +179,7 @@ export class WelchCross {
   }
 }
 
-/** Octave bands (centres 31.5 Hz x 2^k, ISO 266 nominal values' exact base-2 form) below Nyquist. */
+/** Octave bands below Nyquist: centres 1 kHz x 2^k from 31.25 Hz (base 2; ISO 266 rounds the nominal 31.5). */
 export function octaveBands(sampleRate: number): { centreHz: number; lowHz: number; highHz: number }[] {
   const out = [];
   for (let c = 31.25; c * Math.SQRT2 <= sampleRate / 2; c *= 2) out.push({ centreHz: c, lowHz: c / Math.SQRT2, highHz: c * Math.SQRT2 });

@@ -72,7 +72,9 @@ export function benchEngine(c: BenchCase): BenchResult {
     for (let done = 0; done < count; done += BLOCK) {
       const m = Math.min(BLOCK, count - done);
       const at = (done / BLOCK) % 4;
-      for (let k = 0; k < channels; k++) engines[k]!.process(x.subarray(at * BLOCK), d.subarray(at * BLOCK), clean, adaptive, m);
+      const xs = x.subarray(at * BLOCK);
+      const ds = d.subarray(at * BLOCK);
+      for (let k = 0; k < channels; k++) engines[k]!.process(xs, ds, clean, adaptive, m);
     }
   };
   feed(WARM_BLOCKS * BLOCK);

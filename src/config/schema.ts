@@ -61,6 +61,9 @@ const section = (properties: Record<string, unknown>) => ({
 export const AJV_OPTIONS = { allErrors: false, strict: true, allowUnionTypes: true } as const;
 
 /** JSON Schema (draft 2020-12 subset) of the configuration; every key required after merge. */
+/** The pbfdaf partition lengths filter.blockSize allows. */
+export const PBFDAF_BLOCK_SIZES = [16, 32, 64, 128, 256, 512, 1024, 2048, 4096] as const;
+
 export const configSchema = section({
   input: section({
     referenceChannel: int(0, 255),
@@ -79,7 +82,7 @@ export const configSchema = section({
     arithmetic: { enum: ['float64', 'float32', 'q15', 'q31'] },
     rounding: { enum: ['nearest', 'truncate'] },
     weightLimit: { type: 'number', exclusiveMinimum: 0, maximum: 1e30 },
-    blockSize: { enum: [16, 32, 64, 128, 256, 512, 1024, 2048, 4096] },
+    blockSize: { enum: [...PBFDAF_BLOCK_SIZES] },
     constrained: { type: 'boolean' },
   }),
   supervisor: section({

@@ -268,7 +268,6 @@ export class FixedAdaptiveKernel implements AdaptiveKernel {
   retune(spec: AdaptiveSpec): void {
     this.spec = spec;
     ({ muQ: this.muQ, deltaQ: this.deltaQ, lfQ: this.lfQ } = fixedConstants(spec, this.fmt));
-    if (spec.meanRemovalEvery === null) this.sinceMeanRemoval = 0;
   }
 }
 

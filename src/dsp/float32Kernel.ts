@@ -1,4 +1,5 @@
 import { DelayLine } from './delayLine.js';
+import { FloatFirKernel } from './floatKernel.js';
 import { statsOf, type AdaptiveKernel, type AdaptiveSpec, type FirKernel, type WeightStats } from './types.js';
 
 /**
@@ -140,53 +141,20 @@ export class Float32AdaptiveKernel implements AdaptiveKernel {
   }
 }
 
-export class Float32FirKernel implements FirKernel {
-  readonly signalSaturations = 0;
-  private readonly w: Float32Array;
-  private readonly line: DelayLine<Float32Array>;
-
+/** The clean-path FIR in binary32: FloatFirKernel's storage in Float32Array and this sequence. */
+export class Float32FirKernel extends FloatFirKernel {
   constructor(spec: AdaptiveSpec) {
-    this.w = new Float32Array(spec.taps);
-    this.line = line(spec.taps);
+    super(spec, true);
   }
 
-  get taps(): number {
-    return this.w.length;
-  }
-
-  run(x: Float64Array, d: Float64Array, y: Float64Array, e: Float64Array, start: number, end: number): void {
-    const w = this.w;
+  override run(x: Float64Array, d: Float64Array, y: Float64Array, e: Float64Array, start: number, end: number): void {
+    const w = this.w as Float32Array;
     const L = w.length;
     for (let n = start; n < end; n++) {
       this.line.push(f(x[n]!));
-      const yn = dot(w, this.line.buf, this.line.pos, L);
+      const yn = dot(w, this.line.buf as Float32Array, this.line.pos, L);
       y[n] = yn;
       e[n] = f(f(d[n]!) - yn);
     }
-  }
-
-  getWeights(): Float64Array {
-    return Float64Array.from(this.w);
-  }
-
-  setWeights(w: ArrayLike<number>): void {
-    for (let k = 0; k < this.w.length; k++) this.w[k] = w[k] ?? 0;
-  }
-
-  copyWeightsFrom(other: FirKernel): void {
-    this.setWeights(other.getWeights());
-  }
-
-  copyHistoryFrom(other: FirKernel): void {
-    this.line.copyFrom((other as Float32FirKernel).line);
-  }
-
-  reset(): void {
-    this.w.fill(0);
-    this.line.clear();
-  }
-
-  weightStats(out: WeightStats): WeightStats {
-    return statsOf(this.w, 1, out);
   }
 }

@@ -52,9 +52,8 @@ export class FloatAdaptiveKernel implements AdaptiveKernel {
       // Output of the current weights on the un-noised reference.
       let accEval = 0;
       for (let k = 0; k < L; k++) accEval += w[k]! * ev[ep + k]!;
-      const yEval = accEval;
-      y[n] = yEval;
-      e[n] = dn - yEval;
+      y[n] = accEval;
+      e[n] = dn - accEval;
       if (!this.adapting) continue;
 
       // The error the filter adapts on: on the noised reference when injecting noise.
@@ -123,14 +122,15 @@ export class FloatAdaptiveKernel implements AdaptiveKernel {
   }
 }
 
+/** The float64 clean-path FIR; float32Kernel.ts derives its binary32 one from it (storage, run). */
 export class FloatFirKernel implements FirKernel {
   readonly signalSaturations = 0;
-  private readonly w: Float64Array;
-  private readonly line: DelayLine<Float64Array>;
+  protected readonly w: Float64Array | Float32Array;
+  protected readonly line: DelayLine<Float64Array | Float32Array>;
 
-  constructor(spec: AdaptiveSpec) {
-    this.w = new Float64Array(spec.taps);
-    this.line = new DelayLine(spec.taps, (n) => new Float64Array(n));
+  constructor(spec: AdaptiveSpec, single = false) {
+    this.w = single ? new Float32Array(spec.taps) : new Float64Array(spec.taps);
+    this.line = new DelayLine<Float64Array | Float32Array>(spec.taps, (n) => (single ? new Float32Array(n) : new Float64Array(n)));
   }
 
   get taps(): number {
@@ -146,9 +146,8 @@ export class FloatFirKernel implements FirKernel {
       const p = this.line.pos;
       let acc = 0;
       for (let k = 0; k < L; k++) acc += w[k]! * buf[p + k]!;
-      const yn = acc;
-      y[n] = yn;
-      e[n] = d[n]! - yn;
+      y[n] = acc;
+      e[n] = d[n]! - acc;
     }
   }
 

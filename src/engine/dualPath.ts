@@ -81,8 +81,8 @@ const CHUNK = 1024;
  * outputs do not depend on how callers block the stream.
  */
 export class DualPathEngine {
-  windowSamples: number;
-  crossfadeSamples: number;
+  private windowLength: number;
+  private crossfadeLength: number;
   private readonly adaptive: AdaptiveKernel;
   private readonly clean: FirKernel;
   private readonly fading: FirKernel;
@@ -129,14 +129,23 @@ export class DualPathEngine {
   ) {
     this.current = settings;
     const { sampleRate, filter, supervisor } = settings;
-    this.windowSamples = Math.max(1, Math.round(supervisor.windowSeconds * sampleRate));
-    this.crossfadeSamples = Math.max(0, Math.round(supervisor.crossfadeSeconds * sampleRate));
+    this.windowLength = Math.max(1, Math.round(supervisor.windowSeconds * sampleRate));
+    this.crossfadeLength = Math.max(0, Math.round(supervisor.crossfadeSeconds * sampleRate));
     this.adaptive = createAdaptiveKernel(filter);
     this.clean = createFirKernel(filter, undefined, this.adaptive);
     this.fading = createFirKernel(filter, undefined, this.adaptive);
     this.noiseGen = filter.noiseInjectionDb === null ? null : new GaussianNoise(filter.noiseSeed);
     this.noiseSigma = filter.noiseInjectionDb === null ? 0 : sigmaOfDb(filter.noiseInjectionDb);
     this.cleanSnapshot = { version: 0, weights: new Float64Array(filter.taps), sample: 0, reason: 'restored' };
+  }
+
+  /** Samples per supervisor window, and per crossfade, under the settings in effect. */
+  get windowSamples(): number {
+    return this.windowLength;
+  }
+
+  get crossfadeSamples(): number {
+    return this.crossfadeLength;
   }
 
   /** The settings in effect (they change only at a window boundary, by changeSettings). */
@@ -357,8 +366,8 @@ export class DualPathEngine {
       this.pendingSettings = null;
       const old = this.current;
       this.current = next;
-      this.windowSamples = Math.max(1, Math.round(next.supervisor.windowSeconds * next.sampleRate));
-      this.crossfadeSamples = Math.max(0, Math.round(next.supervisor.crossfadeSeconds * next.sampleRate));
+      this.windowLength = Math.max(1, Math.round(next.supervisor.windowSeconds * next.sampleRate));
+      this.crossfadeLength = Math.max(0, Math.round(next.supervisor.crossfadeSeconds * next.sampleRate));
       this.adaptive.retune(next.filter);
       this.listener.onSettings?.(this.sample, old, next);
     }

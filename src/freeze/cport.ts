@@ -89,9 +89,9 @@ void tw_filter_handoff(tw_filter_state *s);
 }
 
 /** Statements shared by both forms: pushing a sample into a doubled delay line. */
-const push = (line: 'xa' | 'xc', pos: 'pa' | 'pc', cast: string) => `  s->${pos} = s->${pos} == 0 ? TW_TAPS - 1 : s->${pos} - 1;
-  old = s->${line}[s->${pos}];
-  s->${line}[s->${pos}] = ${cast}x;
+const push = (line: 'xa' | 'xc', pos: 'pa' | 'pc', cast: string, keepOld = false) => `  s->${pos} = s->${pos} == 0 ? TW_TAPS - 1 : s->${pos} - 1;
+${keepOld ? `  old = s->${line}[s->${pos}];
+` : ''}  s->${line}[s->${pos}] = ${cast}x;
   s->${line}[s->${pos} + TW_TAPS] = ${cast}x;`;
 
 const common = (init: string) => `void tw_filter_init(tw_filter_state *s)
@@ -235,7 +235,7 @@ tw_sample tw_filter_step(tw_filter_state *s, tw_sample x, tw_sample d)
   tw_word old;
   int64_t y, e, st, g;
   int k;
-${push('xa', 'pa', '(tw_word)')}
+${push('xa', 'pa', '(tw_word)', true)}
   s->energy += term(x) - term(old);
   y = sat(dot(s->w, s->xa + s->pa), &s->signal_saturations);
   e = sat((int64_t)d - y, &s->signal_saturations);
@@ -252,10 +252,8 @@ ${meanRemoval}  return (tw_sample)e;
 
 tw_sample tw_filter_clean(tw_filter_state *s, tw_sample x, tw_sample d)
 {
-  tw_word old;
   int64_t y;
 ${push('xc', 'pc', '(tw_word)')}
-  (void)old;
   y = sat(dot(s->wc, s->xc + s->pc), &s->clean_signal_saturations);
   return (tw_sample)sat((int64_t)d - y, &s->clean_signal_saturations);
 }
@@ -304,11 +302,9 @@ static float dot(const tw_word *w, const tw_word *x)
 ${common('0.0f')}
 tw_sample tw_filter_step(tw_filter_state *s, tw_sample x, tw_sample d)
 {
-  tw_word old;
   float y, e, st, g;
   int k;
 ${push('xa', 'pa', '')}
-  (void)old;
   y = dot(s->w, s->xa + s->pa);
   e = d - y;
   if (!s->adapting) return e;
@@ -338,9 +334,7 @@ ${meanRemoval}  return e;
 
 tw_sample tw_filter_clean(tw_filter_state *s, tw_sample x, tw_sample d)
 {
-  tw_word old;
 ${push('xc', 'pc', '')}
-  (void)old;
   return d - dot(s->wc, s->xc + s->pc);
 }
 `;

@@ -4,16 +4,14 @@ import { join } from 'node:path';
 import type { Config } from '../config/schema.js';
 import { fixedConstants, formatOf } from '../dsp/fixedKernel.js';
 import { float32Constants } from '../dsp/float32Kernel.js';
-import { quantize } from '../dsp/fixed.js';
+import { saturate, scaleRound } from '../dsp/fixed.js';
 import { createAdaptiveKernel, createFirKernel } from '../dsp/kernels.js';
 import { INPUT_LIMIT } from '../dsp/level.js';
 import type { AdaptiveSpec } from '../dsp/types.js';
-import { DualPathEngine } from '../engine/dualPath.js';
-import { engineSettingsOf } from '../engine/settings.js';
 import { TapwardenError, oneLine } from '../errors.js';
 import { makeDirectory } from '../io/files.js';
 import { WavReader } from '../io/wav/reader.js';
-import { writeJsonAtomic } from '../replay/replay.js';
+import { replay, writeJsonAtomic } from '../replay/replay.js';
 import { checkChannels } from '../run/preflight.js';
 import { VERSION } from '../version.js';
 import { hexFloat, header, source } from './cport.js';
@@ -26,8 +24,8 @@ export interface FreezeOptions {
   readonly configFile: string;
   /** The recording the weights are reached on (optional) and the vectors come from. */
   readonly recording: string | null;
-  /** The recording the vectors come from when `recording` is null (the demo). */
-  readonly vectorSource: string;
+  /** Writes the demo and returns its recording: the vectors' source when `recording` is null (called after the checks). */
+  readonly demo: () => string;
   readonly outDir: string;
   readonly vectorSeconds: number;
 }
@@ -57,29 +55,22 @@ export function checkPortable(config: Config, file: string): void {
 export function toFormat(v: number, spec: AdaptiveSpec): number {
   const x = Number.isFinite(v) ? Math.max(-INPUT_LIMIT, Math.min(INPUT_LIMIT, v)) : 0;
   const fmt = formatOf(spec.arithmetic);
-  return fmt === null ? Math.fround(x) : quantize(x, fmt, spec.rounding);
+  return fmt === null ? Math.fround(x) : saturate(scaleRound(x, fmt.fracBits, spec.rounding), fmt);
 }
 
-/** Runs the whole recording through the engine; returns the clean weights it reached. */
-function reachedWeights(config: Config, file: string): { weights: Float64Array; version: number; handoffs: number; seconds: number } {
-  const reader = WavReader.open(file);
-  try {
-    checkChannels(reader.format.channels, config, file);
-    const engine = new DualPathEngine(engineSettingsOf(config, reader.format.sampleRate));
-    const B = 4096;
-    const ref = new Float64Array(B);
-    const des = new Float64Array(B);
-    const a = new Float64Array(B);
-    const c = new Float64Array(B);
-    let frames = 0;
-    for (let n; (n = reader.read([config.input.referenceChannel, config.input.desiredChannel], [ref, des])) > 0; frames += n) {
-      engine.process(ref, des, c, a, n);
-    }
-    const snap = engine.cleanWeights;
-    return { weights: Float64Array.from(snap.weights), version: snap.version, handoffs: snap.version, seconds: frames / reader.format.sampleRate };
-  } finally {
-    reader.close();
-  }
+/** Whether toFormat clipped v to the format's range (a fixed-point input store that saturated). */
+function clipsOnInput(v: number, spec: AdaptiveSpec): boolean {
+  const fmt = formatOf(spec.arithmetic);
+  if (fmt === null) return false;
+  const raw = scaleRound(Number.isFinite(v) ? Math.max(-INPUT_LIMIT, Math.min(INPUT_LIMIT, v)) : 0, fmt.fracBits, spec.rounding);
+  return raw !== saturate(raw, fmt);
+}
+
+/** Replays the whole recording (the run layer, its pre-flight checks, no files); the clean weights it reached. */
+function reachedWeights(config: Config, configFile: string, file: string): { weights: number[]; handoffs: number; seconds: number } {
+  const judge = { minCancellationDb: config.supervisor.minCancellationDb, source: configFile };
+  const [s] = replay({ recording: file, policies: [{ name: 'frozen', config, configFile }], outDir: '', judge, files: false }).summaries;
+  return { weights: s!.weights.clean, handoffs: s!.handoffs.accepted, seconds: s!.durationSeconds };
 }
 
 /**
@@ -123,7 +114,7 @@ interface Vectors {
  * (held bit-exact to the reference kernels by the tests), starting from `initial` weights, with
  * a handoff after every `handoffEvery` samples.
  */
-function makeVectors(spec: AdaptiveSpec, cfg: Config, file: string, seconds: number, initial: Float64Array, handoffEvery: number): Vectors {
+function makeVectors(spec: AdaptiveSpec, cfg: Config, file: string, seconds: number, initial: ArrayLike<number>, handoffEvery: number): Vectors {
   const reader = WavReader.open(file);
   try {
     checkChannels(reader.format.channels, cfg, file);
@@ -136,9 +127,8 @@ function makeVectors(spec: AdaptiveSpec, cfg: Config, file: string, seconds: num
     let inputClips = 0;
     for (let i = 0; i < n; i++) {
       for (const v of [x, d]) {
-        const q = toFormat(v[i]!, spec);
-        if (fmt !== null && (q === fmt.max || q === fmt.min) && Math.abs(v[i]! * 2 ** fmt.fracBits - q) >= 1) inputClips++;
-        v[i] = q * scale;
+        if (clipsOnInput(v[i]!, spec)) inputClips++;
+        v[i] = toFormat(v[i]!, spec) * scale;
       }
     }
     const { adaptive, fir, ea, ec } = portOutputs(spec, x, d, initial, handoffEvery);
@@ -306,13 +296,13 @@ export function freeze(opts: FreezeOptions): FreezeResult {
   checkPortable(config, opts.configFile);
   const spec: AdaptiveSpec = config.filter;
   const fmt = formatOf(spec.arithmetic);
-  const vectorFile = opts.recording ?? opts.vectorSource;
+  const vectorFile = opts.recording ?? opts.demo();
   const probe = WavReader.open(vectorFile);
   const rate = probe.format.sampleRate;
   probe.close();
   const windowSamples = Math.max(1, Math.round(config.supervisor.windowSeconds * rate));
-  const reached = opts.recording === null ? null : reachedWeights(config, opts.recording);
-  const initial = reached?.weights ?? new Float64Array(spec.taps);
+  const reached = opts.recording === null ? null : reachedWeights(config, opts.configFile, opts.recording);
+  const initial = reached?.weights ?? new Array<number>(spec.taps).fill(0);
   const initialWords = words(initial, spec);
   const handoffEvery = windowSamples;
   const vectors = makeVectors(spec, config, vectorFile, opts.vectorSeconds, initial, handoffEvery);

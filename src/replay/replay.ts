@@ -154,7 +154,7 @@ export function replay(opts: ReplayOptions): ReplayResult {
       const wavs = files ? new WavOutputs(join(dir, 'clean.wav'), join(dir, 'adaptive.wav'), rate, p.config.output.encoding) : null;
       const bands =
         p.config.output.signal === 'error'
-          ? new BandSink(segment, rate, truthReader !== null, p.config.filter.algorithm === 'pbfdaf' ? p.config.filter.blockSize : 0, block)
+          ? new BandSink(segment, rate, truthReader === null ? null : truth, p.config.filter.algorithm === 'pbfdaf' ? p.config.filter.blockSize : 0, block)
           : null;
       const sinks = [summary, ...(log && wavs ? [log, wavs] : []), ...(bands ? [bands] : [])];
       const run = new Run(settings, p.config.input.desiredChannel, sinks, block);
@@ -171,10 +171,6 @@ export function replay(opts: ReplayOptions): ReplayResult {
         truthReader.read([0], [truth.subarray(0, n)]);
       }
       for (const r of runs) {
-        if (r.bands !== null) {
-          r.bands.desired = des;
-          if (truthReader !== null) r.bands.truth = truth;
-        }
         const t0 = process.hrtime.bigint();
         r.run.process(ref, des, n);
         r.engineNs += process.hrtime.bigint() - t0;

@@ -1,6 +1,6 @@
 import type { Axis, Scalar } from '../sweep/grid.js';
 import type { CellResult } from '../sweep/cells.js';
-import { bestOf, type Aggregate } from '../sweep/sweep.js';
+import { ranked, type Aggregate } from '../sweep/sweep.js';
 import { VERSION } from '../version.js';
 
 /**
@@ -15,6 +15,8 @@ export interface SweepReportInput {
   readonly recordings: readonly string[];
   readonly axes: readonly Axis[];
   readonly combinations: readonly Aggregate[];
+  /** tapwarden's pick among them (sweep.ts bestOf). */
+  readonly best: Aggregate | null;
   readonly cells: readonly CellResult[];
   readonly judgedAtDb: number;
 }
@@ -105,9 +107,8 @@ ${dots}
 }
 
 export function renderSweepReport(input: SweepReportInput): string {
-  const best = bestOf(input.combinations);
-  const ranked = [...input.combinations].sort((a, b) => (a === best ? -1 : b === best ? 1 : (b.worst.cleanCancellationP5Db ?? -Infinity) - (a.worst.cleanCancellationP5Db ?? -Infinity)));
-  const rows = ranked
+  const best = input.best;
+  const rows = ranked(input.combinations)
     .map(
       (a) => `<tr id="c-${esc(label(a.parameters).replace(/\W+/g, '_'))}"${a === best ? ' class="bestrow"' : ''}><td>${esc(label(a.parameters))}</td><td class="${a.verdict}">${a.verdict}</td><td>${db(a.worst.cleanCancellationMedianDb)}</td><td>${db(a.worst.cleanCancellationP5Db)}</td><td>${pct(a.worst.healthyShare)}</td><td>${a.worst.worstBurstSeconds === null ? 'n/a' : `${a.worst.worstBurstSeconds.toFixed(1)} s`}</td><td>${a.worst.weightSaturations ?? 'n/a'}</td><td>${db(a.median.cleanCancellationMedianDb)}</td><td>${a.worseThanBaseline === null ? '' : a.worseThanBaseline.length === 0 ? 'not worse' : `<span class="worse" title="${esc(a.worseThanBaseline.join('\n'))}">worse</span>`}</td><td>${links(input.cells, a.parameters)}</td></tr>`,
     )
@@ -136,7 +137,7 @@ svg.pareto { background: #fff; border: 1px solid #e6e2d8; } svg text { font-size
 <p><b>Pick:</b> ${best === null ? 'none: every combination failed or is worse than the baseline' : `${esc(label(best.parameters))}: worst-case median ${db(best.worst.cleanCancellationMedianDb)}, 5th percentile ${db(best.worst.cleanCancellationP5Db)}, healthy ${pct(best.worst.healthyShare)}, ${best.verdict}`}</p>
 ${input.axes.length <= 2 ? heatMap(input, best) : pareto(input, best)}
 <h2>All combinations</h2>
-<p class="note">Worst case over the recordings, then the median of their medians. Links: each recording's summary.json, in the order given.</p>
+<p class="note">In the order of the pick's rule. Worst case over the recordings, then the median of their medians. Links: each recording's summary.json, in the order given.</p>
 <table>
 <tr><th>combination</th><th>verdict</th><th>median</th><th>p5</th><th>healthy</th><th>worst burst</th><th>w.sat</th><th>median of medians</th><th>gate</th><th>figures</th></tr>
 ${rows}

@@ -3,7 +3,7 @@ import type { RunEvent } from './record.js';
 import type { RunSink } from './run.js';
 
 /**
- * Per octave band, what the clean output did (README "Per-band cancellation"): the cancellation
+ * Per octave band, what the clean output did (README "summary.json", `bands`): the cancellation
  * achieved, 10 log10(P_desired / P_clean), beside the bound the reference-measurement coherence
  * sets; with a truth recording (the wanted signal alone), the signal-to-distortion ratio of the
  * clean output against it, 10 log10(P_truth / P_(clean - truth)): how much of the wanted signal
@@ -43,14 +43,11 @@ export class BandSink implements RunSink {
   private readonly scratch: Float64Array;
   private readonly delayed: Float64Array;
   private delayAt = 0;
-  /** The truth and desired blocks of the samples being processed; the replay sets them before each block. */
-  truth: Float64Array | null = null;
-  desired: Float64Array | null = null;
-
   constructor(
     segment: number,
     private readonly rate: number,
-    withTruth: boolean,
+    /** Where the replay reads each block of the truth recording before the block runs, or null. */
+    private readonly truth: Float64Array | null,
     /** The clean output lags its input by this many samples (pbfdaf: one block). */
     private readonly latency: number,
     maxBlock: number,
@@ -58,8 +55,8 @@ export class BandSink implements RunSink {
     // Every second segment, as the replay's cross-spectra (no overlap).
     this.clean = new WelchPsd(segment, rate, 2);
     this.desiredPsd = new WelchPsd(segment, rate, 2);
-    this.diff = withTruth ? new WelchPsd(segment, rate, 2) : null;
-    this.truthPsd = withTruth ? new WelchPsd(segment, rate, 2) : null;
+    this.diff = truth ? new WelchPsd(segment, rate, 2) : null;
+    this.truthPsd = truth ? new WelchPsd(segment, rate, 2) : null;
     this.delay = new Float64Array(Math.max(1, latency));
     this.scratch = new Float64Array(maxBlock);
     this.delayed = new Float64Array(maxBlock);
@@ -69,10 +66,10 @@ export class BandSink implements RunSink {
     if (event.type === 'handoff') this.active = true;
   }
 
-  onBlock(clean: Float64Array, _adaptive: Float64Array, n: number): void {
+  onBlock(clean: Float64Array, _adaptive: Float64Array, n: number, desired: Float64Array): void {
     if (!this.active) return;
     this.clean.push(clean, n);
-    if (this.desired !== null) this.desiredPsd.push(this.desired, n);
+    this.desiredPsd.push(desired, n);
     const t = this.truth;
     if (t === null || this.diff === null) return;
     const s = this.scratch;

@@ -12,8 +12,8 @@ export interface RunSink {
   onRecord?(record: DecisionRecord): void;
   /** A handoff (with the weights the clean path now holds, tap 0 first) or a rollback (null). */
   onEvent?(event: RunEvent, cleanWeights: Float64Array | null): void;
-  /** Each processed block's output streams (the arrays are reused after the call). */
-  onBlock?(clean: Float64Array, adaptive: Float64Array, n: number): void;
+  /** Each processed block's output streams and the desired input they came from (arrays reused after the call). */
+  onBlock?(clean: Float64Array, adaptive: Float64Array, n: number, desired: Float64Array): void;
 }
 
 /** Fans one stream of results out to several sinks, in order (indexed loops: no iterator per call). */
@@ -28,8 +28,8 @@ export function fanOut(sinks: readonly RunSink[]): Required<RunSink> {
     onEvent: (e, w) => {
       for (let i = 0; i < events.length; i++) events[i]!.onEvent!(e, w);
     },
-    onBlock: (c, a, n) => {
-      for (let i = 0; i < blocks.length; i++) blocks[i]!.onBlock!(c, a, n);
+    onBlock: (c, a, n, d) => {
+      for (let i = 0; i < blocks.length; i++) blocks[i]!.onBlock!(c, a, n, d);
     },
   };
 }
@@ -46,7 +46,6 @@ export class Run {
   private readonly forecaster: DriftForecaster;
   private readonly weights: Float64Array;
   private readonly weightLimit: number;
-  private meanBound: number;
   private cleanOut: Float64Array;
   private adaptiveOut: Float64Array;
 
@@ -61,7 +60,6 @@ export class Run {
     const taps = settings.filter.taps;
     this.weights = new Float64Array(taps);
     this.weightLimit = weightLimitOf(settings.filter);
-    this.meanBound = settings.supervisor.maxWeightMean;
     this.forecaster = new DriftForecaster(taps, settings.supervisor.windowSeconds);
     this.cleanOut = new Float64Array(maxBlockFrames);
     this.adaptiveOut = new Float64Array(maxBlockFrames);
@@ -84,7 +82,6 @@ export class Run {
       const b = next[section] as unknown as Record<string, unknown>;
       for (const k of Object.keys(b)) if (a[k] !== b[k]) changes[`${section}.${k}`] = { from: a[k], to: b[k] };
     }
-    this.meanBound = next.supervisor.maxWeightMean;
     this.sink.onEvent({ type: 'settings', channel: this.channel, sample, timeSeconds: this.seconds(sample), changes }, null);
   }
 
@@ -95,7 +92,7 @@ export class Run {
       this.adaptiveOut = new Float64Array(n);
     }
     this.engine.process(ref, des, this.cleanOut, this.adaptiveOut, n);
-    this.sink.onBlock(this.cleanOut, this.adaptiveOut, n);
+    this.sink.onBlock(this.cleanOut, this.adaptiveOut, n, des);
   }
 
   private seconds(sample: number): number {
@@ -124,7 +121,7 @@ export class Run {
       outOfRangeSamples: r.outOfRangeSamples,
       adaptive: r.adaptive,
       clean: r.clean,
-      forecast: this.forecaster.forecast(this.weightLimit, this.meanBound),
+      forecast: this.forecaster.forecast(this.weightLimit, this.settings.supervisor.maxWeightMean),
     });
   }
 

@@ -5,7 +5,7 @@ import type { EngineSettings } from '../engine/dualPath.js';
 import { oneLine } from '../errors.js';
 import type { RunEvent } from '../run/record.js';
 import type { RunSink } from '../run/run.js';
-import { LIVE_FILTER_KEYS } from './settings.js';
+import { LIVE_FILTER_KEYS, withChanges } from './settings.js';
 
 /**
  * The clean path's weights on disk. A write goes to a temporary file that is fsynced and then
@@ -150,11 +150,7 @@ export class SnapshotSink implements RunSink {
 
   onEvent(e: RunEvent, weights: Float64Array | null): void {
     if (e.type === 'settings') {
-      const next = { filter: { ...this.settings.filter } as Record<string, unknown>, supervisor: { ...this.settings.supervisor } as Record<string, unknown> };
-      for (const [key, c] of Object.entries(e.changes)) {
-        const [section, name] = key.split('.') as ['filter' | 'supervisor', string];
-        next[section][name] = c.to;
-      }
+      const next = withChanges(this.settings, e.changes);
       this.settings = { ...this.settings, filter: next.filter as unknown as EngineSettings['filter'], supervisor: next.supervisor as unknown as EngineSettings['supervisor'] };
       // Saved with the weights in effect, so a restart resumes with both.
       if (this.latest !== null) this.writer.offer(makeSnapshot(this.settings, this.latest.weights, this.latest.version));

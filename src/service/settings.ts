@@ -32,6 +32,18 @@ export function liveSettings(current: Config, body: unknown): Config {
   return validateConfig(next, 'POST /api/control/settings');
 }
 
+type Sections = { filter: Record<string, unknown>; supervisor: Record<string, unknown> };
+
+/** `base`'s filter and supervisor with a settings event's changes ("section.key" -> to) applied, as copies. */
+export function withChanges(base: { filter: object; supervisor: object }, changes: Readonly<Record<string, { to: unknown }>>): Sections {
+  const next: Sections = { filter: { ...base.filter }, supervisor: { ...base.supervisor } };
+  for (const [key, c] of Object.entries(changes)) {
+    const [section, name] = key.split('.') as ['filter' | 'supervisor', string];
+    next[section][name] = c.to;
+  }
+  return next;
+}
+
 /** The live part of a config, as status, snapshots and replies show it. */
 export function liveView(config: Config): { filter: Record<string, unknown>; supervisor: Config['supervisor'] } {
   const f = config.filter as unknown as Record<string, unknown>;

@@ -3,6 +3,7 @@ import type { DecisionRecord, RunEvent } from '../run/record.js';
 import type { RunSink } from '../run/run.js';
 import { VERSION } from '../version.js';
 import type { WeightsReply } from './protocol.js';
+import { withChanges } from './settings.js';
 import type { Telemetry } from './telemetry.js';
 
 /** Decision records kept for /api/status. */
@@ -45,11 +46,7 @@ export class ServiceStatus implements RunSink {
 
   onEvent(e: RunEvent): void {
     if (e.type === 'settings') {
-      const eff = (this.effective ??= { filter: { ...this.config.filter }, supervisor: { ...this.config.supervisor } });
-      for (const [key, c] of Object.entries(e.changes)) {
-        const [section, name] = key.split('.') as ['filter' | 'supervisor', string];
-        eff[section][name] = c.to;
-      }
+      this.effective = withChanges(this.effective ?? this.config, e.changes);
       this.requested = null;
       return;
     }

@@ -47,8 +47,15 @@ export interface BatchResult {
 const errorOf = (err: unknown) =>
   err instanceof TapwardenError ? { code: err.code, message: err.message } : { code: 'TW_ERR_INTERNAL', message: oneLine(err) };
 
+const cellOf = (batch: Batch, c: CellSpec) => ({ key: c.key, recording: batch.recording, parameters: c.parameters, baseline: c.baseline ?? false });
+
+/** Every cell of a batch failed with this error (an unreadable recording, a dead worker or thread). */
+export function failedBatch(batch: Batch, error: { code: string; message: string }): BatchResult {
+  return { results: batch.cells.map((c) => ({ ...cellOf(batch, c), figures: null, error })), summaries: {} };
+}
+
 export function runBatch(batch: Batch): BatchResult {
-  const base = (c: CellSpec) => ({ key: c.key, recording: batch.recording, parameters: c.parameters, baseline: c.baseline ?? false });
+  const base = (c: CellSpec) => cellOf(batch, c);
   try {
     const r = replay({
       recording: batch.recording,
@@ -71,6 +78,6 @@ export function runBatch(batch: Batch): BatchResult {
     return { results, summaries };
   } catch (err) {
     // The recording cannot be read (or the replay failed): every cell of it fails with the code.
-    return { results: batch.cells.map((c) => ({ ...base(c), figures: null, error: errorOf(err) })), summaries: {} };
+    return failedBatch(batch, errorOf(err));
   }
 }

@@ -3,7 +3,7 @@ import { fileURLToPath } from 'node:url';
 import { Queue, QueueEvents, Worker } from 'bullmq';
 import { Redis } from 'ioredis';
 import { TapwardenError, oneLine, quote } from '../errors.js';
-import type { Batch, BatchResult } from './cells.js';
+import { failedBatch, type Batch, type BatchResult } from './cells.js';
 
 /**
  * Sweeps on a BullMQ queue (Redis) for labs that outgrow one machine: the sweep puts its batches
@@ -64,7 +64,7 @@ const bullConnection = (c: Connection) => ({ ...c, maxRetriesPerRequest: null, r
 export async function runOnQueue(
   url: string,
   batches: readonly Batch[],
-  onResult: (batch: Batch, result: BatchResult) => void,
+  onResult: (result: BatchResult) => void,
   onQueued: (count: number) => void,
 ): Promise<void> {
   const connection = bullConnection(await probe(url));
@@ -92,13 +92,9 @@ export async function runOnQueue(
         try {
           result = (await job.waitUntilFinished(events)) as BatchResult;
         } catch (err) {
-          const error = { code: 'TW_ERR_QUEUE', message: `the queue gave up on this batch: ${oneLine(err)}` };
-          result = {
-            results: batch.cells.map((c) => ({ key: c.key, recording: batch.recording, parameters: c.parameters, baseline: c.baseline ?? false, figures: null, error })),
-            summaries: {},
-          };
+          result = failedBatch(batch, { code: 'TW_ERR_QUEUE', message: `the queue gave up on this batch: ${oneLine(err)}` });
         }
-        onResult(batch, result);
+        onResult(result);
       }),
     );
   } finally {

@@ -9,7 +9,7 @@ import { worseThan, type PolicyFigures, type Verdict } from '../replay/compare.j
 import { writeJsonAtomic } from '../replay/replay.js';
 import type { Judgement } from '../run/summary.js';
 import { VERSION } from '../version.js';
-import type { Batch, BatchResult, CellResult, CellSpec } from './cells.js';
+import { failedBatch, type Batch, type BatchResult, type CellResult, type CellSpec } from './cells.js';
 import { MAX_CELLS_WITHOUT_YES, combinations, type Axis, type Scalar } from './grid.js';
 
 export interface SweepOptions {
@@ -82,10 +82,10 @@ const cellKey = (recording: string, bytes: string, config: Config, judge: Judgem
   createHash('sha256').update(JSON.stringify({ recording, bytes, config, judge: judge.minCancellationDb, version: VERSION })).digest('hex').slice(0, 24);
 
 /** Batches of one recording's cells: `parts` of them, so every thread of the pool has work. */
-function split(recording: string, judge: Judgement, cells: CellSpec[], parts: number): Batch[] {
-  const size = Math.ceil(cells.length / Math.max(1, parts));
+function split(batch: Batch, parts: number): Batch[] {
+  const size = Math.ceil(batch.cells.length / Math.max(1, parts));
   const out: Batch[] = [];
-  for (let i = 0; i < cells.length; i += size) out.push({ recording, judge, cells: cells.slice(i, i + size) });
+  for (let i = 0; i < batch.cells.length; i += size) out.push({ ...batch, cells: batch.cells.slice(i, i + size) });
   return out;
 }
 
@@ -134,15 +134,21 @@ function aggregate(parameters: Record<string, Scalar>, cells: CellResult[], base
  * clean cancellation, then the highest worst-case median.
  */
 export function bestOf(all: readonly Aggregate[]): Aggregate | null {
-  const eligible = all.filter((a) => a.verdict !== 'failed' && (a.worseThanBaseline === null || a.worseThanBaseline.length === 0));
+  const first = ranked(all)[0];
+  return first !== undefined && eligible(first) ? first : null;
+}
+
+const eligible = (a: Aggregate) => a.verdict !== 'failed' && (a.worseThanBaseline === null || a.worseThanBaseline.length === 0);
+
+/** Every combination in the order of the pick's rule, the ones that cannot be picked last. */
+export function ranked(all: readonly Aggregate[]): Aggregate[] {
   const v = (x: number | null) => x ?? -Infinity;
-  return (
-    [...eligible].sort(
-      (a, b) =>
-        VERDICT_RANK[a.verdict] - VERDICT_RANK[b.verdict] ||
-        v(b.worst.cleanCancellationP5Db) - v(a.worst.cleanCancellationP5Db) ||
-        v(b.worst.cleanCancellationMedianDb) - v(a.worst.cleanCancellationMedianDb),
-    )[0] ?? null
+  return [...all].sort(
+    (a, b) =>
+      Number(eligible(b)) - Number(eligible(a)) ||
+      VERDICT_RANK[a.verdict] - VERDICT_RANK[b.verdict] ||
+      v(b.worst.cleanCancellationP5Db) - v(a.worst.cleanCancellationP5Db) ||
+      v(b.worst.cleanCancellationMedianDb) - v(a.worst.cleanCancellationMedianDb),
   );
 }
 
@@ -171,7 +177,7 @@ export async function sweep(opts: SweepOptions): Promise<SweepResult> {
       const cached = join(cellsDir, s.key, 'cell.json');
       if (bytes !== null && existsSync(cached)) {
         try {
-          results.set(`${recording}\0${s.key}`, JSON.parse(readFileSync(cached, 'utf8')) as CellResult);
+          results.set(s.key, JSON.parse(readFileSync(cached, 'utf8')) as CellResult);
           continue;
         } catch {
           // A damaged cache entry runs again.
@@ -184,9 +190,9 @@ export async function sweep(opts: SweepOptions): Promise<SweepResult> {
   const cached = results.size;
   let done = cached;
   opts.onProgress?.(done, total);
-  const record = (batch: Batch, r: BatchResult) => {
+  const record = (r: BatchResult) => {
     for (const c of r.results) {
-      results.set(`${batch.recording}\0${c.key}`, c);
+      results.set(c.key, c);
       if (c.error !== null) continue;
       const dir = join(cellsDir, c.key);
       makeDirectory(dir);
@@ -199,12 +205,12 @@ export async function sweep(opts: SweepOptions): Promise<SweepResult> {
   };
   if (opts.queue !== null) {
     const { runOnQueue } = await import('./queue.js');
-    const batches = pending.flatMap((b) => split(b.recording, b.judge, [...b.cells], Math.ceil(b.cells.length / 4)));
+    const batches = pending.flatMap((b) => split(b, Math.ceil(b.cells.length / 4)));
     await runOnQueue(opts.queue, batches, record, opts.onQueued ?? (() => {}));
   } else if (pending.length > 0) {
     const { Piscina } = await import('piscina');
     const parts = Math.max(1, Math.ceil(opts.jobs / pending.length));
-    const batches = pending.flatMap((b) => split(b.recording, b.judge, [...b.cells], Math.min(parts, b.cells.length)));
+    const batches = pending.flatMap((b) => split(b, Math.min(parts, b.cells.length)));
     const pool = new Piscina({ filename: new URL('./poolWorker.js', import.meta.url).href, maxThreads: opts.jobs, minThreads: Math.min(opts.jobs, batches.length) });
     try {
       await Promise.all(
@@ -213,10 +219,9 @@ export async function sweep(opts: SweepOptions): Promise<SweepResult> {
           try {
             r = (await pool.run(b)) as BatchResult;
           } catch (err) {
-            const error = { code: 'TW_ERR_INTERNAL', message: `a sweep thread failed: ${oneLine(err)}` };
-            r = { results: b.cells.map((c) => ({ key: c.key, recording: b.recording, parameters: c.parameters, baseline: c.baseline ?? false, figures: null, error })), summaries: {} };
+            r = failedBatch(b, { code: 'TW_ERR_INTERNAL', message: `a sweep thread failed: ${oneLine(err)}` });
           }
-          record(b, r);
+          record(r);
         }),
       );
     } finally {
@@ -224,12 +229,12 @@ export async function sweep(opts: SweepOptions): Promise<SweepResult> {
     }
   }
   // Cells in a fixed order: combination by combination, recording by recording, then baselines.
-  const perCombination = combos.map((_, i) => plan.map((p) => results.get(`${p.recording}\0${p.specs[i]!.key}`)!));
+  const perCombination = combos.map((_, i) => plan.map((p) => results.get(p.specs[i]!.key)!));
   const cells: CellResult[] = perCombination.flat();
   const baselines = new Map<string, CellResult>();
   if (opts.gate) {
     for (const p of plan) {
-      const b = results.get(`${p.recording}\0${p.specs.at(-1)!.key}`)!;
+      const b = results.get(p.specs.at(-1)!.key)!;
       baselines.set(p.recording, b);
       cells.push(b);
     }

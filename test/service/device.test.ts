@@ -1,6 +1,6 @@
 import { execFileSync } from 'node:child_process';
 import { open, type FileHandle } from 'node:fs/promises';
-import { readFileSync, writeFileSync } from 'node:fs';
+import { readFileSync, statSync, writeFileSync } from 'node:fs';
 import { join } from 'node:path';
 import { afterEach, describe, expect, it } from 'vitest';
 import { WavWriter } from '../../src/io/wav/writer.js';
@@ -116,7 +116,13 @@ describe('the live path through naudiodon (PortAudio) on an ALSA file device', (
         await sleep((1000 * 2048) / RATE);
       }
       await until(async () => (await s.metric('tapwarden_samples_processed_total')) >= FRAMES, 20_000, 'all samples');
-      await sleep(500);
+      // Let the playback child drain before the stop: wait until the played file stops growing
+      // (a loaded machine delays it; counted by bytes, not by a clock's verdict).
+      let last = -1;
+      for (let i = 0; i < 50 && statSync(played, { throwIfNoEntry: false })?.size !== last; i++) {
+        last = statSync(played, { throwIfNoEntry: false })?.size ?? -1;
+        await sleep(300);
+      }
     } finally {
       await fh.close();
       await s.stop();

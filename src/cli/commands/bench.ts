@@ -1,6 +1,7 @@
 import { benchEngine, type BenchCase } from '../../bench/engine.js';
 import { PORT_FLAGS, runPortReference } from '../../bench/portReference.js';
 import { C_FLAGS, buildCReference, numpyAvailable, runCReference, runNumpyReference, type ReferenceResult } from '../../bench/references.js';
+import { PBFDAF_BLOCK_SIZES } from '../../config/schema.js';
 import { ALGORITHMS, ARITHMETICS, type Algorithm, type Arithmetic } from '../../dsp/types.js';
 import { TapwardenError } from '../../errors.js';
 import type { Command } from '../command.js';
@@ -105,7 +106,7 @@ Options:
     if ((blockSize !== undefined || constrainedArg !== undefined) && !rows.every((r) => r.algorithm === 'pbfdaf')) {
       throw new TapwardenError('TW_ERR_USAGE', { detail: 'bench: --block-size and --constrained are for pbfdaf; allowed with --algorithm pbfdaf' });
     }
-    if (blockSize !== undefined && (![16, 32, 64, 128, 256, 512, 1024, 2048, 4096].includes(blockSize) || taps.some((L) => L % blockSize !== 0))) {
+    if (blockSize !== undefined && (!(PBFDAF_BLOCK_SIZES as readonly number[]).includes(blockSize) || taps.some((L) => L % blockSize !== 0))) {
       throw new TapwardenError('TW_ERR_USAGE', { detail: `bench: --block-size ${blockSize} is not allowed; allowed: a power of two from 16 to 4096 that divides --taps` });
     }
     if (rows.some((r) => r.algorithm === 'pbfdaf' && r.arithmetic !== 'float64')) {

@@ -40,17 +40,13 @@ Options:
     }
     const policyFile = values['policy'] as string | undefined;
     const config = loadConfig([configFile, policyFile].filter((f): f is string => f !== undefined));
-    const { checkPortable, freeze } = await import('../../freeze/freeze.js');
-    const named = policyFile ?? configFile ?? DEFAULT_CONFIG_PATH;
-    checkPortable(config, named);
-    const { DEMO_RECORDING, writeDemo } = await import('../../demo/write.js');
+    const [{ freeze }, { DEMO_RECORDING, writeDemo }] = await Promise.all([import('../../freeze/freeze.js'), import('../../demo/write.js')]);
     const recording = positionals[0] ?? null;
-    let vectorSource = recording;
-    if (vectorSource === null) {
+    const demo = () => {
       writeDemo(join(outDir, 'demo'));
-      vectorSource = join(outDir, 'demo', DEMO_RECORDING);
-    }
-    const r = freeze({ config, configFile: named, recording, vectorSource, outDir, vectorSeconds });
+      return join(outDir, 'demo', DEMO_RECORDING);
+    };
+    const r = freeze({ config, configFile: policyFile ?? configFile ?? DEFAULT_CONFIG_PATH, recording, demo, outDir, vectorSeconds });
     process.stdout.write(
       `frozen      ${config.filter.algorithm} ${config.filter.taps} taps ${config.filter.arithmetic}${recording ? `, clean weights reached on ${recording}` : ', zero weights'}\n` +
         `vectors     ${r.vectorSamples} samples, a handoff every ${r.handoffEvery}\n` +

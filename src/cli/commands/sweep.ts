@@ -77,7 +77,7 @@ Options:
     writeSweepJson(join(outDir, 'sweep.json'), opts, r);
     writeText(
       join(outDir, 'report.html'),
-      renderSweepReport({ base: baseFile, recordings: positionals, axes, combinations: r.combinations, cells: r.cells, judgedAtDb: base.supervisor.minCancellationDb }),
+      renderSweepReport({ base: baseFile, recordings: positionals, axes, combinations: r.combinations, best: r.best, cells: r.cells, judgedAtDb: base.supervisor.minCancellationDb }),
     );
     if (r.best !== null) {
       // The pick as a policy file over the base config, for replay --policy and freeze --policy.

@@ -7,9 +7,10 @@ import { statsOf, type AdaptiveKernel, type AdaptiveSpec, type FirKernel, type W
 
 /**
  * The fast kernels: hand-written WebAssembly (src/dsp/wasm/kernels.wat) behind the same
- * interfaces as the reference kernels. float64 uses 128-bit SIMD; float32 scalar f32 in tap order;
- * q15 and q31 use scalar 64-bit integers. float32, q15 and q31 reproduce the reference bit for bit. Samples are copied in and out a chunk at a
- * time; the weights and delay lines live in the module's memory.
+ * interfaces as the reference kernels. float64 uses 128-bit SIMD; float32 f32 in tap order (its
+ * clean FIR four samples per SIMD lane); q15 and q31 scalar 64-bit integers. float32, q15 and q31
+ * reproduce the reference bit for bit. Samples are copied in and out a chunk at a time; the
+ * weights and delay lines live in the module's memory.
  */
 
 const WASM_FILE = new URL('dist/wasm/kernels.wasm', PACKAGE_ROOT);
@@ -131,12 +132,11 @@ export class WasmAdaptiveKernel implements AdaptiveKernel {
   private extraSat = 0;
   private noiseOn = 0;
   private readonly single: boolean;
-  private f32: ReturnType<typeof float32Constants>;
+  private f32!: ReturnType<typeof float32Constants>;
 
   constructor(public spec: AdaptiveSpec) {
     this.fmt = formatOf(spec.arithmetic);
     this.single = spec.arithmetic === 'float32';
-    this.f32 = float32Constants(spec);
     this.inst = new Instance(spec.taps, this.fmt, spec.rounding, this.single);
     this.scale = this.fmt ? 2 ** -this.fmt.fracBits : 1;
     this.retune(spec);
@@ -236,7 +236,6 @@ export class WasmFirKernel implements FirKernel {
   private readonly inst: Instance;
   private readonly fmt: QFormat | null;
   private readonly scale: number;
-
   private readonly single: boolean;
 
   constructor(private readonly spec: AdaptiveSpec) {
