@@ -111,7 +111,11 @@ function deepFreeze<T>(v: T): T {
 /** Checks that need more than one key. */
 function crossChecks(c: Config): string | null {
   const { filter, input, supervisor } = c;
-  if (input.referenceChannel === input.desiredChannel) {
+  if (input.desiredChannels !== null) {
+    if (input.desiredChannels.includes(input.referenceChannel)) {
+      return `input.desiredChannels = ${quote(input.desiredChannels)} is not allowed; allowed: channels other than input.referenceChannel (${input.referenceChannel})`;
+    }
+  } else if (input.referenceChannel === input.desiredChannel) {
     return `input.desiredChannel = ${input.desiredChannel} is not allowed; allowed: a channel other than input.referenceChannel`;
   }
   if (filter.algorithm === 'pbfdaf') {

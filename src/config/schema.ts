@@ -2,7 +2,12 @@ import type { AdaptiveSpec } from '../dsp/types.js';
 
 /** The applied configuration. config/default.yaml holds every default. */
 export interface Config {
-  readonly input: { readonly referenceChannel: number; readonly desiredChannel: number };
+  readonly input: {
+    readonly referenceChannel: number;
+    readonly desiredChannel: number;
+    /** Several measurement channels, each with its own dual path (null: desiredChannel alone). */
+    readonly desiredChannels: readonly number[] | null;
+  };
   /** The kernel's spec (every key set) and the engine's noise injection. */
   readonly filter: Required<AdaptiveSpec> & { readonly noiseInjectionDb: number | null; readonly noiseSeed: number };
   readonly supervisor: {
@@ -57,6 +62,14 @@ const section = (properties: Record<string, unknown>) => ({
   properties,
 });
 
+/** The most measurement channels one run takes (input.desiredChannels). */
+export const MAX_MEASUREMENT_CHANNELS = 16;
+
+/** The measurement channels a run cleans, in the configured order. */
+export function measurementChannels(config: Pick<Config, 'input'>): readonly number[] {
+  return config.input.desiredChannels ?? [config.input.desiredChannel];
+}
+
 /** The validator's options, shared by the build-time code generator (scripts/build-validator.mjs). */
 export const AJV_OPTIONS = { allErrors: false, strict: true, allowUnionTypes: true } as const;
 
@@ -68,6 +81,7 @@ export const configSchema = section({
   input: section({
     referenceChannel: int(0, 255),
     desiredChannel: int(0, 255),
+    desiredChannels: { type: ['array', 'null'], items: int(0, 255), minItems: 1, maxItems: MAX_MEASUREMENT_CHANNELS, uniqueItems: true },
   }),
   filter: section({
     algorithm: { enum: ['lms', 'nlms', 'pbfdaf'] },

@@ -10,7 +10,9 @@ import { sigmaOfDb } from '../dsp/level.js';
  * accelerometer on the specimen hears the motor through the stand's frame (an unknown path) on
  * top of the specimen's own faint bearing signature. Part way through, a frame clamp is
  * re-torqued and the path changes; later a loose connector puts a burst of garbage on the
- * measurement channel.
+ * measurement channel. A second measurement accelerometer, at the specimen's output flange,
+ * hears the motor through a longer path that the re-torque also changes, and the bearing
+ * signature more faintly; its cable stays sound.
  */
 export interface Scenario {
   readonly sampleRate: number;
@@ -33,6 +35,8 @@ export const BENCH: Scenario = {
 export interface Recording {
   readonly reference: Float64Array;
   readonly desired: Float64Array;
+  /** The second measurement channel (the output flange). */
+  readonly flange: Float64Array;
   /** The signal of interest alone: what a perfect canceller would leave. */
   readonly signal: Float64Array;
 }
@@ -103,5 +107,18 @@ export function generateBench(sc: Scenario = BENCH, seed = 2026): Recording {
   const g0 = Math.round(sc.glitchSeconds * fs);
   const g1 = Math.min(n, g0 + Math.round(sc.glitchDurationSeconds * fs));
   for (let i = g0; i < g1; i++) desired[i] = rng.next() > 0 ? 0.99 : -0.99 * Math.abs(rng.next());
-  return { reference, desired, signal };
+
+  // The flange channel, from its own noise generator (the first channels stay as they were).
+  const h3 = framePath(48, 6, 0.6, 650, 0.92, fs);
+  const h4 = framePath(48, 8, 0.75, 930, 0.9, fs);
+  const flange = new Float64Array(n);
+  const flangeNoise = new Float64Array(n);
+  new GaussianNoise(seed + 1).fill(flangeNoise, sigmaOfDb(-70));
+  for (let i = 0; i < n; i++) {
+    const h = i < change ? h3 : h4;
+    let acc = 0;
+    for (let k = 0; k < h.length && k <= i; k++) acc += h[k]! * reference[i - k]!;
+    flange[i] = acc + 0.5 * signal[i]! + flangeNoise[i]!;
+  }
+  return { reference, desired, flange, signal };
 }

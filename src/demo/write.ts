@@ -18,21 +18,27 @@ const DEMO_CONFIGS: ReadonlyArray<{ file: string; comment: string; body: string 
     body: 'filter:\n  algorithm: lms\n  step: 0.05\n  arithmetic: q15\n  rounding: truncate\n',
   },
   {
+    file: 'two-channels.yaml',
+    comment: 'Both measurement accelerometers (channels 1 and 2), each with its own dual path and supervisor.',
+    body: 'input:\n  desiredChannels: [1, 2]\n',
+  },
+  {
     file: 'q15-leak.yaml',
     comment: 'The same, with the fixed-point leak w <- w - (w >> 14): the weights stay bounded.',
     body: 'filter:\n  algorithm: lms\n  step: 0.05\n  arithmetic: q15\n  rounding: truncate\n  leakShift: 14\n',
   },
 ];
 
-/** Writes the demo recording (16-bit stereo: reference, measurement), its truth and configs. */
+/** Writes the demo recording (16-bit: reference, measurement, flange measurement), its truth and configs. */
 export function writeDemo(outDir: string): string[] {
   makeDirectory(outDir);
   const rec = generateBench(BENCH);
-  const wav = new WavWriter(join(outDir, DEMO_RECORDING), BENCH.sampleRate, 2, 'pcm16');
-  wav.write([rec.reference, rec.desired], rec.reference.length);
+  const wav = new WavWriter(join(outDir, DEMO_RECORDING), BENCH.sampleRate, 3, 'pcm16');
+  wav.write([rec.reference, rec.desired, rec.flange], rec.reference.length);
   wav.close();
-  const truth = new WavWriter(join(outDir, 'bench-trial-signal.wav'), BENCH.sampleRate, 1, 'float32');
-  truth.write([rec.signal], rec.signal.length);
+  // The wanted signal as each measurement channel hears it (the flange at half amplitude).
+  const truth = new WavWriter(join(outDir, 'bench-trial-signal.wav'), BENCH.sampleRate, 2, 'float32');
+  truth.write([rec.signal, rec.signal.map((v) => 0.5 * v)], rec.signal.length);
   truth.close();
   const written = [DEMO_RECORDING, 'bench-trial-signal.wav', 'bench-trial.yaml'];
   copyFileSync(DEFAULT_CONFIG_PATH, join(outDir, 'bench-trial.yaml'));

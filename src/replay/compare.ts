@@ -45,7 +45,14 @@ export const RULE = {
   burstGrowth: 0.1,
 } as const;
 
-export function figuresOf(s: Summary): PolicyFigures {
+/** How a summary is named in tables: its policy, with its channel when a run has several. */
+export function labelsOf(summaries: readonly Summary[]): string[] {
+  const multi = new Set(summaries.map((s) => s.channel)).size > 1;
+  return summaries.map((s) => (multi ? `${s.policy}/ch${s.channel}` : s.policy));
+}
+
+/** The summary's figures, named `label` (the policy, or policy/ch<N> with several measurement channels). */
+export function figuresOf(s: Summary, label = s.policy): PolicyFigures {
   const j = s.judgement;
   const longest = j.worstBurst?.seconds ?? 0;
   const weights = s.saturations.adaptive.weights;
@@ -56,7 +63,7 @@ export function figuresOf(s: Summary): PolicyFigures {
         ? 'poor'
         : 'marginal';
   return {
-    name: s.policy,
+    name: label,
     judgedAt: { minCancellationDb: j.minCancellationDb, source: j.source },
     healthyShare: j.healthyShare,
     cleanCancellationMedianDb: s.cancellation.clean.medianDb,
@@ -69,6 +76,24 @@ export function figuresOf(s: Summary): PolicyFigures {
     maxAbsWeightMean: s.maxAbsWeightMean,
     verdict,
   };
+}
+
+const VERDICT_RANK: Record<Verdict, number> = { poor: 0, marginal: 1, ok: 2 };
+
+/**
+ * The worst of one policy's measurement channels: the lowest verdict, then the smallest healthy
+ * share, then the lowest median cancellation (the channel a rig's weakest output comes from).
+ */
+export function worstIndex(rows: readonly Omit<PolicyFigures, 'name' | 'judgedAt'>[]): number {
+  let worst = 0;
+  const key = (f: (typeof rows)[number]) => [VERDICT_RANK[f.verdict], f.healthyShare, f.cleanCancellationMedianDb ?? -Infinity];
+  for (let i = 1; i < rows.length; i++) {
+    const a = key(rows[i]!);
+    const b = key(rows[worst]!);
+    const k = a.findIndex((v, j) => v !== b[j]);
+    if (k >= 0 && a[k]! < b[k]!) worst = i;
+  }
+  return worst;
 }
 
 const lower = (a: number | null, b: number | null, by: number): boolean => (a ?? -Infinity) < (b ?? -Infinity) - by;
@@ -114,7 +139,7 @@ export function formatComparison(rows: readonly PolicyFigures[], gate: { baselin
       String(r.saturations.weights),
       String(r.saturations.signal),
       r.maxAbsWeightMean.toFixed(4),
-      r.verdict + (gate === null ? '' : r.name === gate.baseline ? ' (baseline)' : worse && worse.length ? ` WORSE: ${worse.join('; ')}` : ' not worse'),
+      r.verdict + (gate === null ? '' : worse === undefined ? ' (baseline)' : worse.length ? ` WORSE: ${worse.join('; ')}` : ' not worse'),
     ];
   });
   const widths = head.map((h, i) => Math.max(h.length, ...body.map((row) => row[i]!.length)));

@@ -1,7 +1,7 @@
 import { renameSync, writeFileSync } from 'node:fs';
 import { join } from 'node:path';
 import { WelchCross, bandBounds, spectrumSegment } from '../analysis/welch.js';
-import type { Config } from '../config/schema.js';
+import { measurementChannels, type Config } from '../config/schema.js';
 import { weightLimitOf } from '../dsp/kernels.js';
 import { INPUT_LIMIT } from '../dsp/level.js';
 import { engineSettingsOf } from '../engine/settings.js';
@@ -46,13 +46,17 @@ export interface ReplayOptions {
    * `refused` instead of failing the replay (a sweep cell fails, not the sweep).
    */
   readonly skipRefused?: boolean;
-  /** A recording of the wanted signal alone (channel 0, same rate and start): per-band survival. */
+  /**
+   * A recording of the wanted signal alone (same rate and start): per-band survival. Channel i is
+   * measurement channel i's truth when it has one per measurement channel; else channel 0 is all's.
+   */
   readonly truth?: string;
 }
 
 export interface ReplayResult {
+  /** One per policy and measurement channel, channels of a policy together in configured order. */
   readonly summaries: Summary[];
-  /** Per policy, the folder its files were written to. */
+  /** Per summary, the folder its files were written to. */
   readonly dirs: string[];
   /** The recording was decoded once: reads of the file for all policies together. */
   readonly reads: number;
@@ -77,9 +81,10 @@ export function framesOf(range: SecondsRange | undefined, frames: number, rate: 
 }
 
 /**
- * Replays a recording through one run per policy as fast as the CPU allows: each block is
- * decoded once and fed to every run. Each run writes clean.wav, adaptive.wav and
- * decisions.ndjson as it goes, and summary.json at the end.
+ * Replays a recording through one run per policy and measurement channel as fast as the CPU
+ * allows: each block is decoded once and fed to every run. Each run writes clean.wav,
+ * adaptive.wav and decisions.ndjson as it goes, and summary.json at the end, in its policy's
+ * folder (ch<N>/ inside it with several measurement channels).
  */
 export function replay(opts: ReplayOptions): ReplayResult {
   const started = process.hrtime.bigint();
@@ -119,12 +124,14 @@ export function replay(opts: ReplayOptions): ReplayResult {
     reader.seek(range.from);
     const readsBefore = reader.reads;
     const block = opts.blockFrames ?? 4096;
+    const measured = measurementChannels(first.config);
     const ref = new Float64Array(block);
-    const des = new Float64Array(block);
+    const des = measured.map(() => new Float64Array(block));
     const segment = spectrumSegment(rate);
     // Spectra from segments that do not overlap (every second of Welch's half-overlapping ones):
-    // half the transforms, for a little more variance (README "summary.json", bands).
-    const cross = new WelchCross(segment, rate, 2);
+    // half the transforms, for a little more variance (README "summary.json", bands). One per
+    // measurement channel: the coherence bound is the reference's with that channel.
+    const crosses = measured.map(() => new WelchCross(segment, rate, 2));
     const truthReader = opts.truth === undefined ? null : WavReader.open(opts.truth);
     if (truthReader !== null) {
       if (truthReader.format.sampleRate !== rate || truthReader.frames < range.to) {
@@ -136,10 +143,13 @@ export function replay(opts: ReplayOptions): ReplayResult {
       }
       truthReader.seek(range.from);
     }
-    const truth = new Float64Array(block);
+    // One truth channel per measurement channel when the file has as many, else channel 0 for all.
+    const truthChannels = truthReader === null ? [] : truthReader.format.channels >= measured.length ? measured.map((_, i) => i) : measured.map(() => 0);
+    const truths = measured.map(() => new Float64Array(block));
     const total = range.to - range.from;
-    const runs = admitted.map((p) => {
-      const dir = policies.length === 1 ? outDir : join(outDir, p.name);
+    const runs = admitted.flatMap((p) => measured.map((channel, ci) => {
+      const policyDir = policies.length === 1 ? outDir : join(outDir, p.name);
+      const dir = measured.length === 1 ? policyDir : join(policyDir, `ch${channel}`);
       if (files) makeDirectory(dir);
       const settings = engineSettingsOf(p.config, rate);
       const windowSamples = Math.max(1, Math.round(p.config.supervisor.windowSeconds * rate));
@@ -154,25 +164,25 @@ export function replay(opts: ReplayOptions): ReplayResult {
       const wavs = files ? new WavOutputs(join(dir, 'clean.wav'), join(dir, 'adaptive.wav'), rate, p.config.output.encoding) : null;
       const bands =
         p.config.output.signal === 'error'
-          ? new BandSink(segment, rate, truthReader === null ? null : truth, p.config.filter.algorithm === 'pbfdaf' ? p.config.filter.blockSize : 0, block)
+          ? new BandSink(segment, rate, truthReader === null ? null : truths[ci]!, p.config.filter.algorithm === 'pbfdaf' ? p.config.filter.blockSize : 0, block)
           : null;
       const sinks = [summary, ...(log && wavs ? [log, wavs] : []), ...(bands ? [bands] : [])];
-      const run = new Run(settings, p.config.input.desiredChannel, sinks, block);
-      return { p, dir, run, summary, log, wavs, bands, engineNs: 0n };
-    });
-    const channels = [first.config.input.referenceChannel, first.config.input.desiredChannel];
+      const run = new Run(settings, channel, sinks, block);
+      return { p, dir, channel, ci, run, summary, log, wavs, bands, engineNs: 0n };
+    }));
+    const channels = [first.config.input.referenceChannel, ...measured];
     let done = 0;
     while (done < total) {
-      const n = reader.read(channels, [ref.subarray(0, Math.min(block, total - done)), des]);
+      const n = reader.read(channels, [ref.subarray(0, Math.min(block, total - done)), ...des]);
       if (n === 0) break;
-      cross.push(ref, des, n);
+      for (let c = 0; c < crosses.length; c++) crosses[c]!.push(ref, des[c]!, n);
       if (truthReader !== null) {
-        truth.fill(0);
-        truthReader.read([0], [truth.subarray(0, n)]);
+        for (const t of truths) t.fill(0);
+        truthReader.read(truthChannels, truths.map((t) => t.subarray(0, n)));
       }
       for (const r of runs) {
         const t0 = process.hrtime.bigint();
-        r.run.process(ref, des, n);
+        r.run.process(ref, des[r.ci]!, n);
         r.engineNs += process.hrtime.bigint() - t0;
       }
       done += n;
@@ -183,8 +193,8 @@ export function replay(opts: ReplayOptions): ReplayResult {
       r.log?.close();
     }
     truthReader?.close();
-    const crossResult = cross.result();
-    const bounds = bandBounds(crossResult, rate);
+    const crossResults = crosses.map((c) => c.result());
+    const bounds = crossResults.map((c) => bandBounds(c, rate));
     const elapsedSeconds = Number(process.hrtime.bigint() - started) / 1e9;
     const summaries = runs.map((r) => {
       const { config } = r.p;
@@ -207,6 +217,7 @@ export function replay(opts: ReplayOptions): ReplayResult {
         tool: `tapwarden ${VERSION}`,
         recording,
         policy: r.p.name,
+        channel: r.channel,
         sampleRate: rate,
         samples: done,
         durationSeconds: done / rate,
@@ -234,7 +245,7 @@ export function replay(opts: ReplayOptions): ReplayResult {
         outOfRangeSamples: e.outOfRangeSamples,
         limits: { weight: weightLimitOf(r.run.settings.filter), weightMean: config.supervisor.maxWeightMean },
         drift: f.drift,
-        bands: r.bands?.figures(bounds) ?? null,
+        bands: r.bands?.figures(bounds[r.ci]!) ?? null,
         truth: opts.truth ?? null,
         outputs: {
           clean: 'clean.wav',
@@ -250,7 +261,7 @@ export function replay(opts: ReplayOptions): ReplayResult {
       if (files) writeJsonAtomic(join(r.dir, 'summary.json'), summary);
       return summary;
     });
-    const spectrum = { frequencies: crossResult.frequencies, psd: crossResult.psdX };
+    const spectrum = { frequencies: crossResults[0]!.frequencies, psd: crossResults[0]!.psdX };
     return {
       summaries,
       dirs: runs.map((r) => r.dir),

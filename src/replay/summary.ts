@@ -9,6 +9,8 @@ export interface Summary extends Omit<SummaryFigures, 'drift'> {
   recording: string;
   /** The policy's name (its config file's base name), or "default". */
   policy: string;
+  /** The measurement channel (input.desiredChannel, or one of input.desiredChannels). */
+  channel: number;
   sampleRate: number;
   samples: number;
   durationSeconds: number;
@@ -67,7 +69,7 @@ export function formatSeconds(s: number): string {
 }
 
 /** A few lines for a person: what ran, what the supervisor did, how well the output cancels. */
-export function formatSummary(s: Summary, outDir: string): string {
+export function formatSummary(s: Summary, outDir: string, withReport = true): string {
   const c = s.config.filter;
   const h = s.handoffs;
   const rejectedBy = Object.entries(h.rejectedBy)
@@ -106,7 +108,7 @@ export function formatSummary(s: Summary, outDir: string): string {
         ]
       : []),
     `speed       ${s.realtimeFactor.toFixed(1)}x real time (wall clock)`,
-    `written     ${outDir}/summary.json, decisions.ndjson, clean.wav, adaptive.wav, report.html`,
+    `written     ${outDir}/summary.json, decisions.ndjson, clean.wav, adaptive.wav${withReport ? ', report.html' : ''}`,
   );
   return lines.join('\n');
 }

@@ -2,7 +2,7 @@ import { readFileSync } from 'node:fs';
 import { createRequire } from 'node:module';
 import type { ExcitationAnalysis } from '../analysis/excitation.js';
 import { powerDb } from '../dsp/level.js';
-import { RULE, type PolicyFigures } from '../replay/compare.js';
+import { RULE, labelsOf, type PolicyFigures } from '../replay/compare.js';
 import type { Summary } from '../replay/summary.js';
 import { VERSION } from '../version.js';
 import { decimate } from './decimate.js';
@@ -62,7 +62,7 @@ function markers(s: Summary) {
     }));
 }
 
-function policyData(s: Summary) {
+function policyData(s: Summary, name: string) {
   const t = s.series.map((p) => p.timeSeconds);
   const pick = (f: (p: Summary['series'][number]) => number) => s.series.map(f);
   const power = decimate(t, [pick((p) => p.desiredPowerDb), pick((p) => p.adaptive.errorPowerDb), pick((p) => p.clean.errorPowerDb)], DISPLAY_COLUMNS);
@@ -76,7 +76,7 @@ function policyData(s: Summary) {
   let maxSeen = 0;
   for (const p of s.series) maxSeen = Math.max(maxSeen, p.adaptive.maxAbsWeight);
   return {
-    name: s.policy,
+    name,
     weightLimitShown: s.limits.weight <= 10 * maxSeen ? s.limits.weight : null,
     filter: `${s.config.filter.algorithm} ${s.config.filter.taps} taps, step ${s.config.filter.step}, ${s.config.filter.arithmetic}/${s.config.filter.rounding}`,
     limits: s.limits,
@@ -99,6 +99,7 @@ export function renderReport(input: ReportInput): string {
     input.spectrum === null
       ? null
       : decimate(input.spectrum.frequencies, [input.spectrum.psd.map((v) => powerDb(v))], DISPLAY_COLUMNS);
+  const names = labelsOf(input.summaries);
   const data = {
     title: `tapwarden report: ${input.recording}`,
     version: VERSION,
@@ -111,7 +112,7 @@ export function renderReport(input: ReportInput): string {
     gate: input.gate,
     spectrum,
     analysis: input.analysis,
-    policies: input.summaries.map(policyData),
+    policies: input.summaries.map((s, i) => policyData(s, names[i]!)),
   };
   return `<!doctype html>
 <html lang="en">
@@ -175,7 +176,7 @@ const REPORT_SCRIPT = String.raw`
        b ? b.seconds.toFixed(1) + ' s at ' + b.peakErrorPowerDb.toFixed(0) + ' dB' : 'none',
        f.timeToFirstHandoffSeconds === null ? 'never' : f.timeToFirstHandoffSeconds.toFixed(1) + ' s', f.handoffsAccepted, f.handoffsRejected,
        f.saturations.weights, f.saturations.signal, f.maxAbsWeightMean.toFixed(4)].forEach((v) => r.appendChild(el('td', {}, String(v))));
-      const v = el('td', { className: f.verdict }, f.verdict + (D.gate ? (D.gate.baseline === f.name ? ' (baseline)' : worse && worse.length ? ' worse: ' + worse.join('; ') : ' not worse') : ''));
+      const v = el('td', { className: f.verdict }, f.verdict + (D.gate ? (!worse ? ' (baseline)' : worse.length ? ' worse: ' + worse.join('; ') : ' not worse') : ''));
       if (worse && worse.length) v.className = 'worse';
       r.appendChild(v); t.appendChild(r);
     });

@@ -14,13 +14,14 @@ import type { WavReader } from '../io/wav/reader.js';
 /** Seconds of the loudest stretch of reference the LMS bounds are computed from. */
 export const STEP_SCAN_SECONDS = 10;
 
-/** Throws TW_ERR_WAV_CHANNEL unless both configured channels exist. */
+/** Throws TW_ERR_WAV_CHANNEL unless every configured channel exists. */
 export function checkChannels(channels: number, config: Config, file: string): void {
-  for (const key of ['referenceChannel', 'desiredChannel'] as const) {
-    const value = config.input[key];
-    if (value >= channels) {
-      throw new TapwardenError('TW_ERR_WAV_CHANNEL', { file, channels, last: channels - 1, key: `input.${key}`, value });
-    }
+  const { input } = config;
+  const wanted: [string, number][] = [['input.referenceChannel', input.referenceChannel]];
+  if (input.desiredChannels === null) wanted.push(['input.desiredChannel', input.desiredChannel]);
+  else input.desiredChannels.forEach((c, i) => wanted.push([`input.desiredChannels[${i}]`, c]));
+  for (const [key, value] of wanted) {
+    if (value >= channels) throw new TapwardenError('TW_ERR_WAV_CHANNEL', { file, channels, last: channels - 1, key, value });
   }
 }
 

@@ -1,6 +1,6 @@
 import type { Config } from '../config/schema.js';
 import { TapwardenError, oneLine } from '../errors.js';
-import { figuresOf, type PolicyFigures } from '../replay/compare.js';
+import { figuresOf, worstIndex, type PolicyFigures } from '../replay/compare.js';
 import { replay } from '../replay/replay.js';
 import type { Summary } from '../replay/summary.js';
 import type { Judgement } from '../run/summary.js';
@@ -28,19 +28,27 @@ export interface Batch {
   readonly cells: readonly CellSpec[];
 }
 
-/** A cell's figures (the clean path's, as replay's comparison reports them), or its error. */
+type Figures = Omit<PolicyFigures, 'name' | 'judgedAt'>;
+
+/**
+ * A cell's figures (the clean path's, as replay's comparison reports them), or its error. With
+ * several measurement channels the figures are the worst channel's, and `channels` has each one's.
+ */
 export interface CellResult {
   readonly key: string;
   readonly recording: string;
   readonly parameters: Readonly<Record<string, Scalar>>;
   readonly baseline: boolean;
-  readonly figures: Omit<PolicyFigures, 'name' | 'judgedAt'> | null;
+  readonly figures: Figures | null;
+  /** The measurement channel the figures are from. */
+  readonly channel: number | null;
+  readonly channels: { channel: number; figures: Figures }[] | null;
   readonly error: { code: string; message: string } | null;
 }
 
 export interface BatchResult {
   readonly results: CellResult[];
-  /** Per cell key, the full summary (written by the sweep to its cell's folder). */
+  /** Per cell key, the full summary of its worst channel (written by the sweep to its cell's folder). */
   readonly summaries: Record<string, Summary>;
 }
 
@@ -51,7 +59,7 @@ const cellOf = (batch: Batch, c: CellSpec) => ({ key: c.key, recording: batch.re
 
 /** Every cell of a batch failed with this error (an unreadable recording, a dead worker or thread). */
 export function failedBatch(batch: Batch, error: { code: string; message: string }): BatchResult {
-  return { results: batch.cells.map((c) => ({ ...cellOf(batch, c), figures: null, error })), summaries: {} };
+  return { results: batch.cells.map((c) => ({ ...cellOf(batch, c), figures: null, channel: null, channels: null, error })), summaries: {} };
 }
 
 export function runBatch(batch: Batch): BatchResult {
@@ -65,15 +73,18 @@ export function runBatch(batch: Batch): BatchResult {
       files: false,
       skipRefused: true,
     });
-    const byKey = new Map(r.summaries.map((s) => [s.policy, s]));
     const refused = new Map(r.refused.map((x) => [x.policy, x.error]));
     const summaries: Record<string, Summary> = {};
     const results = batch.cells.map((c): CellResult => {
-      const s = byKey.get(c.key);
-      if (s === undefined) return { ...base(c), figures: null, error: errorOf(refused.get(c.key)) };
-      summaries[c.key] = s;
-      const { name: _name, judgedAt: _judgedAt, ...figures } = figuresOf(s);
-      return { ...base(c), figures, error: null };
+      const own = r.summaries.filter((s) => s.policy === c.key);
+      if (own.length === 0) return { ...base(c), figures: null, channel: null, channels: null, error: errorOf(refused.get(c.key)) };
+      const channels = own.map((s) => {
+        const { name: _name, judgedAt: _judgedAt, ...figures } = figuresOf(s);
+        return { channel: s.channel, figures };
+      });
+      const w = worstIndex(channels.map((x) => x.figures));
+      summaries[c.key] = own[w]!;
+      return { ...base(c), figures: channels[w]!.figures, channel: channels[w]!.channel, channels: channels.length > 1 ? channels : null, error: null };
     });
     return { results, summaries };
   } catch (err) {

@@ -5,6 +5,7 @@ import { analyzeExcitation, type ExcitationAnalysis } from '../../analysis/excit
 import { DbHistogram } from '../../analysis/histogram.js';
 import { WelchCross, WelchPsd, bandBounds, spectrumSegment } from '../../analysis/welch.js';
 import { DEFAULT_CONFIG_PATH, loadConfig } from '../../config/load.js';
+import { measurementChannels } from '../../config/schema.js';
 import { INPUT_LIMIT, powerDb } from '../../dsp/level.js';
 import { TapwardenError, oneLine, quote, warningLine } from '../../errors.js';
 import { makeDirectory } from '../../io/files.js';
@@ -194,7 +195,8 @@ function select(recording: string, config: ReturnType<typeof loadConfig>, taps: 
     const psd = new WelchPsd(spectrumSegment(rate), rate);
     const x = new Float64Array(win);
     const d = new Float64Array(win);
-    const channels = [config.input.referenceChannel, config.input.desiredChannel];
+    // With several measurement channels, the first is analyzed (README "analyze").
+    const channels = [config.input.referenceChannel, measurementChannels(config)[0]!];
     const median = new DbHistogram();
     let referenceEnergy = 0;
     reader.seek(range.from);

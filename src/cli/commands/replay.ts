@@ -1,6 +1,7 @@
 import { basename, extname, join } from 'node:path';
 import { writeFileSync } from 'node:fs';
 import { DEFAULT_CONFIG_PATH, loadConfig } from '../../config/load.js';
+import { measurementChannels } from '../../config/schema.js';
 import { TapwardenError, oneLine, warningLine } from '../../errors.js';
 import type { Policy } from '../../replay/replay.js';
 import type { Judgement } from '../../run/summary.js';
@@ -81,7 +82,7 @@ Options:
           ? { minCancellationDb: policies[0]!.config.supervisor.minCancellationDb, source: policies[0]!.name }
           : { minCancellationDb: loadConfig(configFile).supervisor.minCancellationDb, source: configFile ?? 'the embedded default' };
     // The engine, the report and the rest load only once the command line and configs are good.
-    const [{ DEMO_RECORDING, writeDemo }, { renderReport }, { figuresOf, formatComparison, worseThan }, { replay, writeJsonAtomic }, { describeDrift, formatSummary }] = await Promise.all([
+    const [{ DEMO_RECORDING, writeDemo }, { renderReport }, { figuresOf, formatComparison, labelsOf, worseThan, worstIndex }, { replay, writeJsonAtomic }, { describeDrift, formatSummary }] = await Promise.all([
       import('../../demo/write.js'),
       import('../../report/html.js'),
       import('../../replay/compare.js'),
@@ -101,18 +102,38 @@ Options:
     } finally {
       bar.stop();
     }
-    const figures = result.summaries.map(figuresOf);
+    const summaries = result.summaries;
+    const labels = labelsOf(summaries);
+    const figures = summaries.map((s, i) => figuresOf(s, labels[i]));
     const worse = new Map<string, string[]>();
     if (baseline) {
-      const base = figures.find((f) => f.name === baseline.name)!;
-      for (const f of figures) if (f !== base) worse.set(f.name, worseThan(f, base, baseline.config.supervisor.windowSeconds));
+      // Each channel is held to the baseline's same channel.
+      summaries.forEach((s, i) => {
+        if (s.policy === baseline.name) return;
+        const b = summaries.findIndex((x) => x.policy === baseline.name && x.channel === s.channel);
+        worse.set(figures[i]!.name, worseThan(figures[i]!, figures[b]!, baseline.config.supervisor.windowSeconds));
+      });
     }
+    // With several measurement channels: per policy, the channel with the worst figures.
+    const multi = measurementChannels(policies[0]!.config).length > 1;
+    const worstChannels = multi
+      ? Object.fromEntries(
+          [...new Set(summaries.map((s) => s.policy))].map((p) => {
+            const own = summaries.flatMap((s, i) => (s.policy === p ? [i] : []));
+            const w = own[worstIndex(own.map((i) => figures[i]!))]!;
+            return [p, { channel: summaries[w]!.channel, verdict: figures[w]!.verdict, healthyShare: figures[w]!.healthyShare }];
+          }),
+        )
+      : null;
+    const worstLines = worstChannels
+      ? Object.entries(worstChannels).map(([p, w]) => `worst       ${policies.length > 1 ? `${p}: ` : ''}channel ${w.channel} (${w.verdict}, healthy ${(100 * w.healthyShare).toFixed(1)} %)\n`)
+      : [];
     const gate = baseline ? { baseline: baseline.name, worse: Object.fromEntries(worse) } : null;
     const report = renderReport({
       recording,
-      durationSeconds: result.summaries[0]!.durationSeconds,
+      durationSeconds: summaries[0]!.durationSeconds,
       sampleRate: result.sampleRate,
-      summaries: result.summaries,
+      summaries,
       figures,
       gate,
       spectrum: result.spectrum,
@@ -124,18 +145,24 @@ Options:
       throw new TapwardenError('TW_ERR_OUTPUT_WRITE', { file: join(outDir, 'report.html'), reason: oneLine(err) });
     }
     const said = new Set<string>();
-    for (const w of result.summaries.flatMap((s) => s.warnings)) {
+    for (const w of summaries.flatMap((s) => s.warnings)) {
       const line = warningLine(w.code, w.message);
       if (!said.has(line)) process.stderr.write(line + '\n');
       said.add(line);
     }
     if (policies.length === 1) {
-      process.stdout.write(formatSummary(result.summaries[0]!, outDir) + '\n');
+      summaries.forEach((s, i) => {
+        if (multi) process.stdout.write(`${i > 0 ? '\n' : ''}channel     ${s.channel}\n`);
+        process.stdout.write(formatSummary(s, result.dirs[i]!, !multi) + '\n');
+      });
+      if (multi) process.stdout.write(`report      ${outDir}/report.html\n`);
+      for (const line of worstLines) process.stdout.write(line);
     } else {
-      writeJsonAtomic(join(outDir, 'comparison.json'), { recording, reads: result.reads, judgement: judge, policies: figures, gate });
+      writeJsonAtomic(join(outDir, 'comparison.json'), { recording, reads: result.reads, judgement: judge, policies: figures, gate, worstChannels });
       process.stdout.write(formatComparison(figures, baseline ? { baseline: baseline.name, worse } : null) + '\n');
-      for (const s of result.summaries) process.stdout.write(`${s.policy}: ${describeDrift(s)}\n`);
-      process.stdout.write(`written     ${outDir}/comparison.json, report.html, and per policy: summary.json, decisions.ndjson, clean.wav, adaptive.wav\n`);
+      summaries.forEach((s, i) => process.stdout.write(`${labels[i]}: ${describeDrift(s)}\n`));
+      for (const line of worstLines) process.stdout.write(line);
+      process.stdout.write(`written     ${outDir}/comparison.json, report.html, and per policy${multi ? ' and channel (POLICY/chN/)' : ''}: summary.json, decisions.ndjson, clean.wav, adaptive.wav\n`);
     }
     const failing = [...worse].filter(([, r]) => r.length > 0);
     if (failing.length > 0) {
