@@ -258,6 +258,7 @@ export function writeSweepJson(file: string, opts: SweepOptions, r: SweepResult)
       baseline: c.baseline,
       ...(c.figures ?? {}),
       verdict: c.figures?.verdict ?? 'failed',
+      ...(c.channels ? { channel: c.channel } : {}),
       error: c.error,
       figures: c.error === null ? `cells/${c.key}/summary.json` : null,
     })),
