@@ -130,16 +130,17 @@ export class EngineHost {
     this.worker.postMessage({ t: 'start' } satisfies ToWorker);
   }
 
-  control(op: ControlOp): Promise<WeightsReply> {
-    return this.request((id) => ({ t: 'control', op, id }));
+  /** An operator action on one measurement channel, or on every one (null). */
+  control(op: ControlOp, channel: number | null = null): Promise<WeightsReply> {
+    return this.request((id) => ({ t: 'control', op, channel, id }));
   }
 
   weights(): Promise<WeightsReply> {
     return this.request((id) => ({ t: 'weights', id }));
   }
 
-  restore(weights: number[]): Promise<WeightsReply> {
-    return this.request((id) => ({ t: 'restore', weights, id }));
+  restore(weights: number[], channel: number): Promise<WeightsReply> {
+    return this.request((id) => ({ t: 'restore', weights, channel, id }));
   }
 
   /** Stops the source and playback; answers with the final weights. */

@@ -1,6 +1,6 @@
 import { createHash } from 'node:crypto';
 import { closeSync, fsyncSync, openSync, readFileSync, renameSync, writeSync } from 'node:fs';
-import { dirname } from 'node:path';
+import { dirname, extname } from 'node:path';
 import type { EngineSettings } from '../engine/dualPath.js';
 import { oneLine } from '../errors.js';
 import type { RunEvent } from '../run/record.js';
@@ -99,6 +99,13 @@ export function incompatibility(s: Snapshot, settings: EngineSettings): string |
   return diffs.length ? `the snapshot was taken with ${diffs.join(', ')}` : null;
 }
 
+/** The snapshot file of one measurement channel: persistence.file itself with one, FILE.ch<N>.EXT with several. */
+export function snapshotFileOf(file: string, channel: number, several: boolean): string {
+  if (!several) return file;
+  const ext = extname(file);
+  return `${file.slice(0, file.length - ext.length)}.ch${channel}${ext}`;
+}
+
 /** Writes at most one snapshot per interval; a newer one waits for the interval to end. */
 export class SnapshotWriter {
   private lastWrite = 0;
@@ -144,11 +151,14 @@ export class SnapshotSink implements RunSink {
   latest: { weights: number[]; version: number } | null = null;
 
   constructor(
-    private readonly writer: SnapshotWriter,
+    readonly writer: SnapshotWriter,
     private settings: EngineSettings,
+    /** The measurement channel whose weights this sink keeps (events of others are not its own). */
+    readonly channel: number,
   ) {}
 
   onEvent(e: RunEvent, weights: Float64Array | null): void {
+    if (e.channel !== this.channel) return;
     if (e.type === 'settings') {
       const next = withChanges(this.settings, e.changes);
       this.settings = { ...this.settings, filter: next.filter as unknown as EngineSettings['filter'], supervisor: next.supervisor as unknown as EngineSettings['supervisor'] };

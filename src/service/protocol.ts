@@ -5,9 +5,10 @@ import type { DecisionRecord, RunEvent } from '../run/record.js';
 /** What the main thread asks of the engine worker; each request is answered by id. */
 export type ToWorker =
   | { t: 'start' }
-  | { t: 'control'; op: ControlOp; id: number }
+  /** channel: one measurement channel, or null for every one. */
+  | { t: 'control'; op: ControlOp; channel: number | null; id: number }
   | { t: 'weights'; id: number }
-  | { t: 'restore'; weights: number[]; id: number }
+  | { t: 'restore'; weights: number[]; channel: number; id: number }
   | { t: 'stop'; id: number };
 
 export type ControlOp =
@@ -19,12 +20,19 @@ export type ControlOp =
   /** New settings from the next window boundary on (validated by the main thread). */
   | { kind: 'settings'; settings: EngineSettings };
 
-export interface WeightsReply {
+/** One measurement channel's weights and flags. */
+export interface ChannelState {
+  channel: number;
   clean: number[];
   adaptive: number[];
   cleanVersion: number;
   adapting: boolean;
   handoffsHeld: boolean;
+}
+
+/** Every measurement channel's state, in configured order. */
+export interface WeightsReply {
+  channels: ChannelState[];
 }
 
 /** What the engine worker tells the main thread. */

@@ -1,6 +1,6 @@
 import { readFileSync } from 'node:fs';
 import { pino, type Logger } from 'pino';
-import type { Config } from '../config/schema.js';
+import { measurementChannels, type Config } from '../config/schema.js';
 import { cachedDemo } from '../demo/write.js';
 import { weightLimitOf } from '../dsp/kernels.js';
 import { engineSettingsOf } from '../engine/settings.js';
@@ -13,7 +13,7 @@ import { VERSION } from '../version.js';
 import { buildApp } from './app.js';
 import { EngineHost } from './engineHost.js';
 import { ServiceMetrics } from './metrics.js';
-import { SnapshotSink, SnapshotWriter, incompatibility, readSnapshot } from './persistence.js';
+import { SnapshotSink, SnapshotWriter, incompatibility, readSnapshot, snapshotFileOf } from './persistence.js';
 import { controlPlugin } from './plugins/control.js';
 import { StatusFeed } from './plugins/feed.js';
 import { metricsPlugin } from './plugins/metrics.js';
@@ -21,6 +21,7 @@ import { pagePlugin } from './plugins/page.js';
 import { statusPlugin } from './plugins/status.js';
 import { liveSettings, liveView } from './settings.js';
 import { ServiceStatus } from './status.js';
+import type { WeightsReply } from './protocol.js';
 import { Telemetry } from './telemetry.js';
 
 export const TOKEN_ENV = 'TAPWARDEN_CONTROL_TOKEN';
@@ -110,24 +111,30 @@ export async function startService(config: Config, configFile: string): Promise<
   const log = pino({ level: config.log.level });
   const source = prepareSource(config, configFile, (m) => log.warn({ code: 'TW_WARN_INPUT' }, m));
   const settings = engineSettingsOf(config, source.sampleRate);
+  const measured = measurementChannels(config);
   const telemetry = new Telemetry();
-  const metrics = new ServiceMetrics(telemetry);
+  const metrics = new ServiceMetrics(telemetry, measured);
   metrics.weightMeanLimit.set(config.supervisor.maxWeightMean);
   metrics.weightLimit.set(weightLimitOf(settings.filter));
   const status = new ServiceStatus(config, source.description, source.sampleRate, telemetry);
-  const writer =
-    config.persistence.file === null
-      ? null
-      : new SnapshotWriter(config.persistence.file, config.persistence.minIntervalSeconds, (ok, detail) => {
-          metrics.snapshots.labels(ok ? 'ok' : 'failed').inc();
-          if (ok) log.info({ snapshot: config.persistence.file }, detail);
-          else log.error({ snapshot: config.persistence.file }, detail);
+  // One snapshot per measurement channel (FILE.ch<N>.EXT with several).
+  const persisted = config.persistence.file;
+  const snapshots =
+    persisted === null
+      ? []
+      : measured.map((channel) => {
+          const file = snapshotFileOf(persisted, channel, measured.length > 1);
+          const writer = new SnapshotWriter(file, config.persistence.minIntervalSeconds, (ok, detail) => {
+            metrics.snapshots.labels(ok ? 'ok' : 'failed').inc();
+            if (ok) log.info({ snapshot: file }, detail);
+            else log.error({ snapshot: file }, detail);
+          });
+          return new SnapshotSink(writer, settings, channel);
         });
-  const snapshots = writer === null ? null : new SnapshotSink(writer, settings);
   const feed = new StatusFeed(config.feed, metrics, () => status.feedStatus());
   let failure: (why: string) => void = () => {};
   const failed = new Promise<string>((resolve) => (failure = resolve));
-  const sinks: RunSink[] = [metrics, status, feed, logSink(log), ...(snapshots ? [snapshots] : [])];
+  const sinks: RunSink[] = [metrics, status, feed, logSink(log), ...snapshots];
   const host = new EngineHost(config, source.file, source.sampleRate, telemetry, sinks, {
     tick: (streamSeconds) => feed.tick(streamSeconds),
     state: (up, reason) => {
@@ -146,11 +153,10 @@ export async function startService(config: Config, configFile: string): Promise<
     },
   });
 
-  const control = async (op: Parameters<EngineHost['control']>[0]) => {
-    const r = await host.control(op);
+  const control = async (op: Parameters<EngineHost['control']>[0], channel: number | null) => {
+    const r = await host.control(op, channel);
     status.applyReply(r);
-    metrics.adapting.set(r.adapting ? 1 : 0);
-    metrics.handoffsEnabled.set(r.handoffsHeld ? 0 : 1);
+    metrics.applyReply(r);
     return r;
   };
   // The settings last accepted (in effect from the window boundary after the request).
@@ -158,24 +164,28 @@ export async function startService(config: Config, configFile: string): Promise<
   const changeSettings = async (body: unknown, why = 'request') => {
     const next = liveSettings(live, body);
     if (source.scan !== null) for (const w of checkLmsStep(source.scan, next, 'POST /api/control/settings', source.sampleRate)) log.warn({ code: 'TW_WARN_STEP' }, w);
-    await host.control({ kind: 'settings', settings: engineSettingsOf(next, source.sampleRate) });
+    await host.control({ kind: 'settings', settings: engineSettingsOf(next, source.sampleRate) }, null);
     live = next;
     status.setRequestedSettings(liveView(next));
     log.info({ settings: liveView(next), why }, 'settings accepted');
     return { ok: true, appliesAt: 'the next window boundary', ...liveView(next) };
   };
-  if (writer !== null) {
-    const read = readSnapshot(writer.file);
+  // The live settings are shared by every channel: the first restored snapshot's are taken.
+  let settingsRestored = false;
+  for (const sink of snapshots) {
+    const file = sink.writer.file;
+    const read = readSnapshot(file);
     const why = 'problem' in read ? read.problem : incompatibility(read.snapshot, settings);
-    if (why !== null) log.warn({ snapshot: writer.file }, `weights not restored: ${why}`);
+    if (why !== null) log.warn({ snapshot: file }, `weights not restored: ${why}`);
     else if (!('problem' in read)) {
-      status.applyReply(await host.restore(read.snapshot.weights));
-      log.info({ snapshot: writer.file, savedAt: read.snapshot.savedAt }, `weights restored from ${writer.file}`);
-      if (read.snapshot.settings) {
+      status.applyReply(await host.restore(read.snapshot.weights, sink.channel));
+      log.info({ snapshot: file, savedAt: read.snapshot.savedAt, channel: sink.channel }, `weights restored from ${file}`);
+      if (read.snapshot.settings && !settingsRestored) {
+        settingsRestored = true;
         try {
           await changeSettings(read.snapshot.settings, 'restored from the snapshot');
         } catch (err) {
-          log.warn({ snapshot: writer.file }, `settings not restored: ${oneLine(err)}`);
+          log.warn({ snapshot: file }, `settings not restored: ${oneLine(err)}`);
         }
       }
     }
@@ -188,7 +198,7 @@ export async function startService(config: Config, configFile: string): Promise<
       ready: () => (host.failure !== null ? { ready: false, reason: `the engine failed: ${host.failure}` } : { ready: status.streamUp, reason: status.streamState }),
       weights: () => host.weights(),
     }),
-    controlPlugin(token, control, (body) => changeSettings(body)),
+    controlPlugin(token, measured, control, (body) => changeSettings(body)),
     feed.plugin,
     pagePlugin,
   ]);
@@ -213,14 +223,16 @@ export async function startService(config: Config, configFile: string): Promise<
     stop(reason) {
       stopping ??= (async () => {
         log.info({ reason }, 'stopping');
-        let final: { weights: number[]; version: number } | null = null;
+        let final: WeightsReply | null = null;
         try {
-          const w = await host.stop();
-          final = { weights: w.clean, version: w.cleanVersion };
+          final = await host.stop();
         } catch {
           // The engine is gone: the last weights it announced are saved instead.
         }
-        snapshots?.save(final);
+        for (const sink of snapshots) {
+          const w = final?.channels.find((c) => c.channel === sink.channel);
+          sink.save(w ? { weights: w.clean, version: w.cleanVersion } : null);
+        }
         feed.close();
         await app.close();
         await host.close();

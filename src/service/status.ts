@@ -1,4 +1,4 @@
-import type { Config } from '../config/schema.js';
+import { measurementChannels, type Config } from '../config/schema.js';
 import type { DecisionRecord, RunEvent } from '../run/record.js';
 import type { RunSink } from '../run/run.js';
 import { VERSION } from '../version.js';
@@ -9,17 +9,55 @@ import type { Telemetry } from './telemetry.js';
 /** Decision records kept for /api/status. */
 const RECENT_DECISIONS = 20;
 
+/** One measurement channel's side of the status. */
+class ChannelStatus {
+  last: DecisionRecord | null = null;
+  readonly recent: DecisionRecord[] = [];
+  lastHandoff: (RunEvent & { type: 'handoff'; at: string }) | null = null;
+  flags = { adapting: true, handoffsHeld: false, cleanVersion: 0 };
+
+  constructor(
+    readonly channel: number,
+    private readonly index: number,
+    private readonly telemetry: Telemetry,
+  ) {}
+
+  counters() {
+    const t = this.telemetry;
+    const i = this.index;
+    return {
+      ...this.flags,
+      saturations: {
+        adaptiveWeights: t.getChannel(i, 'adaptiveWeightSaturations'),
+        adaptiveSignal: t.getChannel(i, 'adaptiveSignalSaturations'),
+        cleanSignal: t.getChannel(i, 'cleanSignalSaturations'),
+      },
+      nonFiniteSamples: t.getChannel(i, 'nonFiniteSamples'),
+      outOfRangeSamples: t.getChannel(i, 'outOfRangeSamples'),
+    };
+  }
+
+  view() {
+    return {
+      channel: this.channel,
+      ...this.counters(),
+      lastWindow: this.last,
+      lastHandoff: this.lastHandoff,
+      forecast: this.last?.forecast ?? null,
+      recentDecisions: this.recent,
+    };
+  }
+}
+
 /**
- * What /api/status and the feed's status messages say: a sink of the run that keeps the last
- * record, the last few decisions and the last handoff, beside the stream's state, the operator's
- * flags and the worker's running counters.
+ * What /api/status and the feed's status messages say: a sink of the runs that keeps, per
+ * measurement channel, the last record, the last few decisions, the last handoff and the
+ * operator's flags, beside the stream's state and the worker's running counters. The top-level
+ * engine figures, last window and forecast are the first channel's (the whole status with one).
  */
 export class ServiceStatus implements RunSink {
   private readonly startedAt = Date.now();
-  private last: DecisionRecord | null = null;
-  private readonly recent: DecisionRecord[] = [];
-  private lastHandoff: (RunEvent & { type: 'handoff'; at: string }) | null = null;
-  private flags = { adapting: true, handoffsHeld: false, cleanVersion: 0 };
+  private readonly channels: ChannelStatus[];
   streamUp = false;
   streamState = 'starting';
 
@@ -28,12 +66,19 @@ export class ServiceStatus implements RunSink {
     private readonly description: string,
     private readonly sampleRate: number,
     private readonly telemetry: Telemetry,
-  ) {}
+  ) {
+    this.channels = measurementChannels(config).map((c, i) => new ChannelStatus(c, i, telemetry));
+  }
+
+  private of(channel: number): ChannelStatus {
+    return this.channels.find((c) => c.channel === channel) ?? this.channels[0]!;
+  }
 
   onRecord(r: DecisionRecord): void {
-    this.last = r;
-    this.recent.unshift(r);
-    if (this.recent.length > RECENT_DECISIONS) this.recent.length = RECENT_DECISIONS;
+    const c = this.of(r.channel);
+    c.last = r;
+    c.recent.unshift(r);
+    if (c.recent.length > RECENT_DECISIONS) c.recent.length = RECENT_DECISIONS;
   }
 
   /** The live settings (filter step, leak, leakShift, meanRemovalEvery; supervisor) in effect, and any accepted but not yet in effect. */
@@ -51,13 +96,14 @@ export class ServiceStatus implements RunSink {
       return;
     }
     if (e.type !== 'handoff') return;
-    this.lastHandoff = { ...e, at: new Date().toISOString() };
-    this.flags = { ...this.flags, cleanVersion: e.version };
+    const c = this.of(e.channel);
+    c.lastHandoff = { ...e, at: new Date().toISOString() };
+    c.flags = { ...c.flags, cleanVersion: e.version };
   }
 
   /** The engine's flags as a control or weights reply states them. */
   applyReply(r: WeightsReply): void {
-    this.flags = { adapting: r.adapting, handoffsHeld: r.handoffsHeld, cleanVersion: r.cleanVersion };
+    for (const x of r.channels) this.of(x.channel).flags = { adapting: x.adapting, handoffsHeld: x.handoffsHeld, cleanVersion: x.cleanVersion };
   }
 
   setStream(up: boolean, state: string): void {
@@ -71,14 +117,7 @@ export class ServiceStatus implements RunSink {
       samples: t.get('samples'),
       blocks: t.get('blocks'),
       streamSeconds: t.get('streamSeconds'),
-      ...this.flags,
-      saturations: {
-        adaptiveWeights: t.get('adaptiveWeightSaturations'),
-        adaptiveSignal: t.get('adaptiveSignalSaturations'),
-        cleanSignal: t.get('cleanSignalSaturations'),
-      },
-      nonFiniteSamples: t.get('nonFiniteSamples'),
-      outOfRangeSamples: t.get('outOfRangeSamples'),
+      ...this.channels[0]!.counters(),
       queue: {
         depth: t.get('queueDepth'),
         capacity: t.get('queueCapacity'),
@@ -95,6 +134,7 @@ export class ServiceStatus implements RunSink {
 
   /** GET /api/status. */
   status(): object {
+    const first = this.channels[0]!;
     return {
       version: VERSION,
       uptimeSeconds: (Date.now() - this.startedAt) / 1000,
@@ -103,15 +143,28 @@ export class ServiceStatus implements RunSink {
       supervisor: this.effective?.supervisor ?? this.config.supervisor,
       pendingSettings: this.requested,
       engine: this.engine(),
-      lastWindow: this.last,
-      lastHandoff: this.lastHandoff,
-      forecast: this.last?.forecast ?? null,
-      recentDecisions: this.recent,
+      lastWindow: first.last,
+      lastHandoff: first.lastHandoff,
+      forecast: first.last?.forecast ?? null,
+      recentDecisions: first.recent,
+      channels: this.channels.map((c) => c.view()),
     };
   }
 
-  /** The feed's status message body. */
+  /**
+   * The feed's status message body: each channel's counters and flags (its windows and handoffs
+   * reach the feed as its own tagged records and events).
+   */
   feedStatus(): object {
-    return { time: new Date().toISOString(), stream: this.stream(), engine: this.engine(), lastWindow: this.last, lastHandoff: this.lastHandoff, forecast: this.last?.forecast ?? null };
+    const first = this.channels[0]!;
+    return {
+      time: new Date().toISOString(),
+      stream: this.stream(),
+      engine: this.engine(),
+      lastWindow: first.last,
+      lastHandoff: first.lastHandoff,
+      forecast: first.last?.forecast ?? null,
+      channels: this.channels.map((c) => ({ channel: c.channel, ...c.counters() })),
+    };
   }
 }

@@ -1,3 +1,5 @@
+import { MAX_MEASUREMENT_CHANNELS } from '../config/schema.js';
+
 /**
  * The engine worker's running counters, in a SharedArrayBuffer: the worker writes them as it
  * goes and the main thread reads them when Prometheus scrapes, so no message carries them and
@@ -13,25 +15,27 @@ const SLOTS = [
   'overruns',
   'queueDepth',
   'queueCapacity',
-  'adaptiveWeightSaturations',
-  'adaptiveSignalSaturations',
-  'cleanSignalSaturations',
-  'nonFiniteSamples',
-  'outOfRangeSamples',
   'playbackUnderruns',
   'playbackDroppedBlocks',
   'blockSecondsSum',
   'streamSeconds',
 ] as const;
 
+/** Counters each measurement channel's run keeps for itself. */
+const CHANNEL_SLOTS = ['adaptiveWeightSaturations', 'adaptiveSignalSaturations', 'cleanSignalSaturations', 'nonFiniteSamples', 'outOfRangeSamples'] as const;
+
 export type Slot = (typeof SLOTS)[number];
+export type ChannelSlot = (typeof CHANNEL_SLOTS)[number];
 const INDEX = Object.fromEntries(SLOTS.map((s, i) => [s, i])) as Record<Slot, number>;
+const CHANNEL_INDEX = Object.fromEntries(CHANNEL_SLOTS.map((s, i) => [s, i])) as Record<ChannelSlot, number>;
 const HIST_AT = SLOTS.length;
+const CHANNELS_AT = HIST_AT + BLOCK_SECONDS_BUCKETS.length + 1;
+const SIZE = CHANNELS_AT + CHANNEL_SLOTS.length * MAX_MEASUREMENT_CHANNELS;
 
 export class Telemetry {
   readonly values: Float64Array;
 
-  constructor(readonly buffer: SharedArrayBuffer = new SharedArrayBuffer(8 * (SLOTS.length + BLOCK_SECONDS_BUCKETS.length + 1))) {
+  constructor(readonly buffer: SharedArrayBuffer = new SharedArrayBuffer(8 * SIZE)) {
     this.values = new Float64Array(buffer);
   }
 
@@ -45,6 +49,15 @@ export class Telemetry {
 
   add(slot: Slot, v: number): void {
     this.values[INDEX[slot]]! += v;
+  }
+
+  /** A counter of the measurement channel at `index` in input.desiredChannels order. */
+  getChannel(index: number, slot: ChannelSlot): number {
+    return this.values[CHANNELS_AT + index * CHANNEL_SLOTS.length + CHANNEL_INDEX[slot]]!;
+  }
+
+  setChannel(index: number, slot: ChannelSlot, v: number): void {
+    this.values[CHANNELS_AT + index * CHANNEL_SLOTS.length + CHANNEL_INDEX[slot]] = v;
   }
 
   /** Counts one block's processing time in the histogram (cumulative buckets are formed on read). */

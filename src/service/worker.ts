@@ -1,4 +1,5 @@
 import { parentPort, workerData } from 'node:worker_threads';
+import { measurementChannels } from '../config/schema.js';
 import { engineSettingsOf } from '../engine/settings.js';
 import { oneLine } from '../errors.js';
 import { Run, type RunSink } from '../run/run.js';
@@ -11,7 +12,7 @@ import { Telemetry } from './telemetry.js';
 
 /**
  * The engine's thread: it owns the whole input path (the file pacer, or the capture child's
- * pipe), the run, and playback, so nothing the main thread does (HTTP, the feed, a flood of
+ * pipe), one run per measurement channel, and playback (of the first channel's clean output), so nothing the main thread does (HTTP, the feed, a flood of
  * either) can delay or drop a block. It tells the main thread about windows, handoffs and feed
  * ticks; its counters are in the shared telemetry buffer.
  */
@@ -28,8 +29,9 @@ const playback =
   config.stream.source === 'device' && config.stream.device.playback !== null
     ? new Playback(config, sampleRate, telemetry, (message) => post({ t: 'warning', message: `playback: ${message}` }))
     : null;
-const run = new Run(engineSettingsOf(config, sampleRate), config.input.desiredChannel, playback ? [toMain, playback] : [toMain], config.stream.blockFrames);
-const engine = run.engine;
+const settings = engineSettingsOf(config, sampleRate);
+const runs = measurementChannels(config).map((channel, i) => new Run(settings, channel, playback && i === 0 ? [toMain, playback] : [toMain], config.stream.blockFrames));
+const first = runs[0]!.engine;
 const tickSamples = Math.max(1, Math.round(config.feed.intervalSeconds * sampleRate));
 let nextTick = tickSamples;
 /**
@@ -43,17 +45,20 @@ const callbacks: SourceCallbacks = {
   block(ref, des, n) {
     if (exitAfter !== undefined && ++blocksSeen > Number(exitAfter)) process.exit(70);
     const t0 = process.hrtime.bigint();
-    run.process(ref, des, n);
+    for (let c = 0; c < runs.length; c++) runs[c]!.process(ref, des[c]!, n);
     telemetry.observeBlock(Number(process.hrtime.bigint() - t0) / 1e9);
     telemetry.add('samples', n);
     telemetry.add('blocks', 1);
-    telemetry.set('adaptiveWeightSaturations', engine.adaptiveWeightSaturations);
-    telemetry.set('adaptiveSignalSaturations', engine.adaptiveSignalSaturations);
-    telemetry.set('cleanSignalSaturations', engine.cleanSignalSaturations);
-    telemetry.set('nonFiniteSamples', engine.nonFiniteSamples);
-    telemetry.set('outOfRangeSamples', engine.outOfRangeSamples);
-    telemetry.set('streamSeconds', engine.samples / sampleRate);
-    while (engine.samples >= nextTick) {
+    for (let c = 0; c < runs.length; c++) {
+      const engine = runs[c]!.engine;
+      telemetry.setChannel(c, 'adaptiveWeightSaturations', engine.adaptiveWeightSaturations);
+      telemetry.setChannel(c, 'adaptiveSignalSaturations', engine.adaptiveSignalSaturations);
+      telemetry.setChannel(c, 'cleanSignalSaturations', engine.cleanSignalSaturations);
+      telemetry.setChannel(c, 'nonFiniteSamples', engine.nonFiniteSamples);
+      telemetry.setChannel(c, 'outOfRangeSamples', engine.outOfRangeSamples);
+    }
+    telemetry.set('streamSeconds', first.samples / sampleRate);
+    while (first.samples >= nextTick) {
       post({ t: 'tick', streamSeconds: nextTick / sampleRate });
       nextTick += tickSamples;
     }
@@ -66,13 +71,19 @@ const source: StreamSource = config.stream.source === 'device' ? new DeviceSourc
 
 function weights(): WeightsReply {
   return {
-    clean: Array.from(engine.cleanWeights.weights),
-    adaptive: Array.from(engine.adaptiveWeights()),
-    cleanVersion: engine.cleanWeights.version,
-    adapting: engine.adapting,
-    handoffsHeld: engine.handoffsHeld,
+    channels: runs.map(({ channel, engine }) => ({
+      channel,
+      clean: Array.from(engine.cleanWeights.weights),
+      adaptive: Array.from(engine.adaptiveWeights()),
+      cleanVersion: engine.cleanWeights.version,
+      adapting: engine.adapting,
+      handoffsHeld: engine.handoffsHeld,
+    })),
   };
 }
+
+/** The runs a request is for: one channel's (the main thread checked it exists), or every one. */
+const runsFor = (channel: number | null) => (channel === null ? runs : runs.filter((r) => r.channel === channel));
 
 port.on('message', (m: ToWorker) => {
   try {
@@ -82,16 +93,18 @@ port.on('message', (m: ToWorker) => {
         return;
       case 'control': {
         const op = m.op;
-        if (op.kind === 'handoff') engine.handoff('forced');
-        else if (op.kind === 'adaptation') engine.adapting = !op.frozen;
-        else if (op.kind === 'handoffs') engine.handoffsHeld = op.frozen;
-        else if (op.kind === 'rollback') engine.rollback('forced');
-        else if (op.kind === 'settings') engine.changeSettings(op.settings);
-        else engine.reset();
+        for (const { engine } of runsFor(m.channel)) {
+          if (op.kind === 'handoff') engine.handoff('forced');
+          else if (op.kind === 'adaptation') engine.adapting = !op.frozen;
+          else if (op.kind === 'handoffs') engine.handoffsHeld = op.frozen;
+          else if (op.kind === 'rollback') engine.rollback('forced');
+          else if (op.kind === 'settings') engine.changeSettings(op.settings);
+          else engine.reset();
+        }
         break;
       }
       case 'restore':
-        engine.restore(m.weights);
+        for (const { engine } of runsFor(m.channel)) engine.restore(m.weights);
         break;
       case 'stop':
         source.stop();

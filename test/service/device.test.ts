@@ -69,7 +69,7 @@ describe('the live path through naudiodon (PortAudio) on an ALSA file device', (
       const live = {
         adaptive: ((await (await s.get('/api/weights?path=adaptive')).json()) as { weights: number[] }).weights,
         clean: ((await (await s.get('/api/weights?path=clean')).json()) as { weights: number[] }).weights,
-        accepted: await s.metric('tapwarden_handoffs_accepted_total{reason="supervisor"}'),
+        accepted: await s.metric('tapwarden_handoffs_accepted_total{channel="1",reason="supervisor"}'),
       };
       const r = cli(['replay', wav, '--config', join(dir, 'replay.yaml'), '--out', join(dir, 'replay')]);
       expect(r.status).toBe(0);

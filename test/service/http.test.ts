@@ -41,7 +41,7 @@ describe('the HTTP surface of a running service', () => {
   let s: Served;
   beforeAll(async () => {
     s = await serveWith(dir, 'feed:\n  intervalSeconds: 0.1\n  maxClients: 3\n  maxMessageBytes: 256\n', { TAPWARDEN_CONTROL_TOKEN: TOKEN });
-    await until(async () => (await s.metric('tapwarden_handoffs_accepted_total{reason="supervisor"}')) > 0, 30_000, 'a handoff');
+    await until(async () => (await s.metric('tapwarden_handoffs_accepted_total{channel="1",reason="supervisor"}')) > 0, 30_000, 'a handoff');
   });
   afterAll(async () => {
     expect(await s.stop()).toBe(0);
@@ -82,11 +82,11 @@ describe('the HTTP surface of a running service', () => {
 
   it('labels per-path figures, saturations by what clipped, rejections by criterion', async () => {
     const text = await (await s.get('/metrics')).text();
-    for (const p of ['adaptive', 'clean']) expect(text).toMatch(new RegExp(`^tapwarden_cancellation_db\\{path="${p}"\\} -?[\\d.]+`, 'm'));
-    expect(text).toMatch(/^tapwarden_saturations_total\{path="adaptive",store="weights"\} \d+/m);
-    expect(text).toMatch(/^tapwarden_saturations_total\{path="adaptive",store="signal"\} \d+/m);
-    expect(text).toMatch(/^tapwarden_handoffs_rejected_total\{criterion="weightMean"\} \d+/m);
-    expect(text).toMatch(/^tapwarden_handoffs_rejected_total\{criterion="outOfRange"\} \d+/m);
+    for (const p of ['adaptive', 'clean']) expect(text).toMatch(new RegExp(`^tapwarden_cancellation_db\\{channel="1",path="${p}"\\} -?[\\d.]+`, 'm'));
+    expect(text).toMatch(/^tapwarden_saturations_total\{channel="1",path="adaptive",store="weights"\} \d+/m);
+    expect(text).toMatch(/^tapwarden_saturations_total\{channel="1",path="adaptive",store="signal"\} \d+/m);
+    expect(text).toMatch(/^tapwarden_handoffs_rejected_total\{channel="1",criterion="weightMean"\} \d+/m);
+    expect(text).toMatch(/^tapwarden_handoffs_rejected_total\{channel="1",criterion="outOfRange"\} \d+/m);
   });
 
   it('healthz, readyz, status and weights', async () => {
@@ -135,13 +135,13 @@ describe('the HTTP surface of a running service', () => {
     const ok = await post('/api/control/handoffs', '{"frozen": true}', TOKEN);
     expect(ok.status).toBe(200);
     expect(((await ok.json()) as any).handoffsHeld).toBe(true);
-    expect(await s.metric('tapwarden_handoffs_enabled')).toBe(0);
-    const before = await s.metric('tapwarden_clean_weights_version');
+    expect(await s.metric('tapwarden_handoffs_enabled{channel="1"}')).toBe(0);
+    const before = await s.metric('tapwarden_clean_weights_version{channel="1"}');
     // README: the body of handoff, rollback and reset is {} or none; an empty JSON body is none.
     expect((await post('/api/control/handoff', undefined, TOKEN)).status).toBe(200);
     expect((await post('/api/control/handoff', '', TOKEN)).status).toBe(200);
     expect((await post('/api/control/handoff', '{}', TOKEN)).status).toBe(200);
-    await until(async () => (await s.metric('tapwarden_clean_weights_version')) === before + 3, 5000, 'three forced handoffs');
+    await until(async () => (await s.metric('tapwarden_clean_weights_version{channel="1"}')) === before + 3, 5000, 'three forced handoffs');
     expect((await post('/api/control/handoffs', '{"frozen": false}', TOKEN)).status).toBe(200);
     const bad = await post('/api/control/adaptation', '{"frozen": "yes"}', TOKEN);
     expect(bad.status).toBe(400);
@@ -217,7 +217,7 @@ describe('counts, not clocks: a stream processed exactly', () => {
   it('a client that never reads costs no input and holds up no other client', async () => {
     const dir = tmpDir();
     const { file, frames } = recording(dir, 4);
-    const s = await serveWith(dir, `stream:\n  file: ${file}\n  loop: false\nfeed:\n  intervalSeconds: 0.01\n  clientBufferBytes: 2048\n`);
+    const s = await serveWith(dir, `stream:\n  file: ${file}\n  loop: false\nfeed:\n  intervalSeconds: 0.01\n  clientBufferBytes: 4096\n`);
     const url = s.base.replace('http', 'ws') + '/api/feed';
     const stalled = new WebSocket(url);
     const reader = new WebSocket(url);

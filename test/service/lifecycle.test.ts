@@ -26,7 +26,7 @@ describe('serve lifecycle', () => {
     const file = join(dir, 'weights.json');
     const s = await serveWith(dir, `stream:\n  pace: free\n  loop: false\npersistence:\n  file: ${file}\n  minIntervalSeconds: 3600\n`);
     await s.logged((l) => String(l['msg']).startsWith('the stream ended'));
-    const version = await s.metric('tapwarden_clean_weights_version');
+    const version = await s.metric('tapwarden_clean_weights_version{channel="1"}');
     expect(await s.stop()).toBe(0);
     expect(s.stderr.filter((l) => /EBADF|at /.test(l))).toEqual([]);
     const saved = readSnapshot(file);
@@ -79,7 +79,7 @@ describe('serve lifecycle', () => {
     const file = join(dir, 'weights.json');
     const yaml = `persistence:\n  file: ${file}\n  minIntervalSeconds: 0\nsupervisor:\n  passesRequired: 2\n`;
     const s1 = await serveWith(dir, yaml, { TAPWARDEN_CONTROL_TOKEN: TOKEN });
-    await until(async () => (await s1.metric('tapwarden_clean_weights_version')) >= 2, 30_000, 'two handoffs');
+    await until(async () => (await s1.metric('tapwarden_clean_weights_version{channel="1"}')) >= 2, 30_000, 'two handoffs');
     const ws = new WebSocket(s1.base.replace('http', 'ws') + '/api/feed');
     const events: any[] = [];
     ws.on('message', (d) => {
@@ -92,8 +92,8 @@ describe('serve lifecycle', () => {
       expect((await s1.get('/api/control/handoffs', { method: 'POST', headers: auth, body: '{"frozen": true}' })).status).toBe(200);
       const reset = (await (await s1.get('/api/control/reset', { method: 'POST', headers: auth, body: '{}' })).json()) as any;
       await until(() => events.some((e) => e.reason === 'reset'), 5000, 'the reset announced on the feed');
-      expect(await s1.metric('tapwarden_clean_weights_version')).toBe(reset.cleanVersion);
-      expect(await s1.metric('tapwarden_resets_total')).toBe(1);
+      expect(await s1.metric('tapwarden_clean_weights_version{channel="1"}')).toBe(reset.cleanVersion);
+      expect(await s1.metric('tapwarden_resets_total{channel="1"}')).toBe(1);
       const status = (await (await s1.get('/api/status')).json()) as any;
       expect(status.lastHandoff).toMatchObject({ reason: 'reset', version: reset.cleanVersion });
       await until(() => {

@@ -14,7 +14,7 @@ describe('weight persistence', () => {
     const dir = tmpDir();
     const file = join(dir, 'weights.json');
     const s1 = await serveWith(dir, `persistence:\n  file: ${file}\n  minIntervalSeconds: 0\n`);
-    await until(async () => (await s1.metric('tapwarden_clean_weights_version')) >= 2, 20_000, 'two handoffs');
+    await until(async () => (await s1.metric('tapwarden_clean_weights_version{channel="1"}')) >= 2, 20_000, 'two handoffs');
     expect(await s1.stop()).toBe(0);
     const saved = readSnapshot(file);
     if ('problem' in saved) throw new Error(saved.problem);

@@ -37,7 +37,7 @@ describe('settings without a restart', () => {
     expect(status.filter.step).toBe(0.3);
     expect(status.supervisor.passesRequired).toBe(3);
     expect(status.pendingSettings).toBeNull();
-    expect(await s.metric('tapwarden_settings_changes_total')).toBe(1);
+    expect(await s.metric('tapwarden_settings_changes_total{channel="1"}')).toBe(1);
     // Refused, each with its code: a key that needs a restart, a value outside the schema, a
     // value that fails a cross-check, no token.
     const refusals: [unknown, number, string][] = [
@@ -56,7 +56,7 @@ describe('settings without a restart', () => {
     expect((await post({ filter: { step: 0.2 } }, 'wrong-token-wrong-token')).status).toBe(401);
     const bad = (await (await post({ filter: { taps: 32 } })).json()) as any;
     expect(bad.error.message).toMatch(/filter\.taps cannot change while serving; allowed: filter\.step, filter\.leak, filter\.leakShift, filter\.meanRemovalEvery and supervisor\.\*/);
-    expect(await s.metric('tapwarden_settings_changes_total')).toBe(1);
+    expect(await s.metric('tapwarden_settings_changes_total{channel="1"}')).toBe(1);
     expect(await s.stop()).toBe(0);
     const saved = JSON.parse(readFileSync(snapshot, 'utf8'));
     expect(saved.settings.filter).toEqual({ step: 0.3, leak: 0.0001, leakShift: null, meanRemovalEvery: null });

@@ -10,14 +10,18 @@ function tokensEqual(a: string, b: string): boolean {
   return x.length === y.length && timingSafeEqual(x, y);
 }
 
+/** Every action may name one measurement channel; without it, it applies to every one. */
+const channel = { type: 'integer', minimum: 0, maximum: 255 } as const;
 const frozenBody = {
   type: 'object',
   additionalProperties: false,
   required: ['frozen'],
-  properties: { frozen: { type: 'boolean' } },
+  properties: { frozen: { type: 'boolean' }, channel },
 } as const;
-/** No body, or {}: nothing else. */
-const emptyBody = { type: ['object', 'null'], additionalProperties: false, properties: {} } as const;
+/** No body, {}, or {"channel": N}: nothing else. */
+const emptyBody = { type: ['object', 'null'], additionalProperties: false, properties: { channel } } as const;
+
+type Body = { frozen: boolean; channel?: number } | null;
 
 /**
  * POST /api/control/*: operator actions, behind the bearer token; refused outright when no token
@@ -25,7 +29,8 @@ const emptyBody = { type: ['object', 'null'], additionalProperties: false, prope
  */
 export function controlPlugin(
   token: string | null,
-  control: (op: ControlOp) => Promise<WeightsReply>,
+  measured: readonly number[],
+  control: (op: ControlOp, channel: number | null) => Promise<WeightsReply>,
   settings: (body: unknown) => Promise<object>,
 ): FastifyPluginAsync {
   return async (app) => {
@@ -38,10 +43,17 @@ export function controlPlugin(
       }
     });
     const route = (path: string, body: object, op: (b: { frozen: boolean }) => ControlOp) =>
-      app.post(path, { schema: { body } }, async (req: FastifyRequest<{ Body: { frozen: boolean } }>) => {
-        const reply = await control(op(req.body));
+      app.post(path, { schema: { body } }, async (req: FastifyRequest<{ Body: Body }>) => {
+        const ch = req.body?.channel ?? null;
+        if (ch !== null && !measured.includes(ch)) {
+          throw new TapwardenError('TW_ERR_HTTP_BODY', { detail: `channel ${ch} is not a measurement channel; allowed: ${measured.join(', ')} (or no channel: every one)` });
+        }
+        const reply = await control(op(req.body ?? { frozen: false }), ch);
         req.log.info({ control: path, body: req.body ?? null }, 'control request applied');
-        return { ok: true, cleanVersion: reply.cleanVersion, adapting: reply.adapting, handoffsHeld: reply.handoffsHeld };
+        const states = reply.channels
+          .filter((c) => ch === null || c.channel === ch)
+          .map((c) => ({ channel: c.channel, cleanVersion: c.cleanVersion, adapting: c.adapting, handoffsHeld: c.handoffsHeld }));
+        return { ok: true, ...states[0]!, channels: states };
       });
     route('/api/control/handoff', emptyBody, () => ({ kind: 'handoff' }));
     route('/api/control/rollback', emptyBody, () => ({ kind: 'rollback' }));

@@ -27,14 +27,18 @@ export function statusPlugin(deps: StatusDeps): FastifyPluginAsync {
             type: 'object',
             additionalProperties: false,
             required: ['path'],
-            properties: { path: { enum: ['clean', 'adaptive'] } },
+            properties: { path: { enum: ['clean', 'adaptive'] }, channel: { type: 'integer', minimum: 0, maximum: 255 } },
           },
         },
       },
-      async (req: FastifyRequest<{ Querystring: { path: 'clean' | 'adaptive' } }>) => {
-        const w = await deps.weights();
-        const path = req.query.path;
-        return { path, cleanVersion: w.cleanVersion, weights: path === 'clean' ? w.clean : w.adaptive };
+      async (req: FastifyRequest<{ Querystring: { path: 'clean' | 'adaptive'; channel?: number } }>) => {
+        const all = (await deps.weights()).channels;
+        const { path, channel } = req.query;
+        const w = channel === undefined ? all[0]! : all.find((c) => c.channel === channel);
+        if (w === undefined) {
+          throw new TapwardenError('TW_ERR_HTTP_BODY', { detail: `channel ${channel} is not a measurement channel; allowed: ${all.map((c) => c.channel).join(', ')}` });
+        }
+        return { path, channel: w.channel, cleanVersion: w.cleanVersion, weights: path === 'clean' ? w.clean : w.adaptive };
       },
     );
   };

@@ -1,6 +1,6 @@
 import { fork, type ChildProcess } from 'node:child_process';
 import type { Readable } from 'node:stream';
-import type { Config } from '../../config/schema.js';
+import { measurementChannels, type Config } from '../../config/schema.js';
 import type { Telemetry } from '../telemetry.js';
 import type { SourceCallbacks, StreamSource } from './source.js';
 
@@ -18,7 +18,10 @@ export const AUDIO_CHILD = new URL('../../io/audioChild.js', import.meta.url);
 export class DeviceSource implements StreamSource {
   private child: ChildProcess | null = null;
   private readonly ref: Float64Array;
-  private readonly des: Float64Array;
+  private readonly des: Float64Array[];
+  /** Byte offsets in a frame of the reference and of each measurement channel. */
+  private readonly refAt: number;
+  private readonly desAt: number[];
   private fill = 0;
   /** A frame split across two pipe reads. */
   private carry: Buffer = Buffer.alloc(0);
@@ -33,7 +36,9 @@ export class DeviceSource implements StreamSource {
     private readonly cb: SourceCallbacks,
   ) {
     this.ref = new Float64Array(config.stream.blockFrames);
-    this.des = new Float64Array(config.stream.blockFrames);
+    this.des = measurementChannels(config).map(() => new Float64Array(config.stream.blockFrames));
+    this.refAt = 2 * config.input.referenceChannel;
+    this.desAt = measurementChannels(config).map((c) => 2 * c);
     telemetry.set('queueCapacity', config.stream.queueBlocks);
   }
 
@@ -101,13 +106,12 @@ export class DeviceSource implements StreamSource {
     this.lastData = Date.now();
     const b = this.carry.length > 0 ? Buffer.concat([this.carry, chunk]) : chunk;
     const frames = Math.floor(b.length / frameBytes);
-    const rc = this.config.input.referenceChannel;
-    const dc = this.config.input.desiredChannel;
+    const { refAt, desAt, des } = this;
     const n = this.ref.length;
     for (let i = 0; i < frames; i++) {
       const at = i * frameBytes;
-      this.ref[this.fill] = b.readInt16LE(at + rc * 2) / 32768;
-      this.des[this.fill] = b.readInt16LE(at + dc * 2) / 32768;
+      this.ref[this.fill] = b.readInt16LE(at + refAt) / 32768;
+      for (let c = 0; c < des.length; c++) des[c]![this.fill] = b.readInt16LE(at + desAt[c]!) / 32768;
       if (++this.fill === n) {
         this.fill = 0;
         this.cb.block(this.ref, this.des, n);

@@ -1,4 +1,4 @@
-import type { Config } from '../../config/schema.js';
+import { measurementChannels, type Config } from '../../config/schema.js';
 import { WavReader } from '../../io/wav/reader.js';
 import type { Telemetry } from '../telemetry.js';
 import type { SourceCallbacks, StreamSource } from './source.js';
@@ -17,7 +17,7 @@ export class FileSource implements StreamSource {
   private readonly channels: number[];
   private readonly blockFrames: number;
   private readonly ref: Float64Array;
-  private readonly des: Float64Array;
+  private readonly des: Float64Array[];
   private timer: NodeJS.Timeout | NodeJS.Immediate | null = null;
   private startedAt = 0n;
   /** Frames handed over or dropped since start (the stream position). */
@@ -31,10 +31,11 @@ export class FileSource implements StreamSource {
     private readonly cb: SourceCallbacks,
   ) {
     this.reader = WavReader.open(file);
-    this.channels = [config.input.referenceChannel, config.input.desiredChannel];
+    const measured = measurementChannels(config);
+    this.channels = [config.input.referenceChannel, ...measured];
     this.blockFrames = config.stream.blockFrames;
     this.ref = new Float64Array(this.blockFrames);
-    this.des = new Float64Array(this.blockFrames);
+    this.des = measured.map(() => new Float64Array(this.blockFrames));
     telemetry.set('queueCapacity', config.stream.queueBlocks);
   }
 
@@ -102,10 +103,11 @@ export class FileSource implements StreamSource {
   /** Reads and hands over one block; false when the file ended for good. */
   private emitBlock(): boolean {
     const n = this.blockFrames;
-    let got = this.reader.read(this.channels, [this.ref, this.des]);
+    let got = this.reader.read(this.channels, [this.ref, ...this.des]);
     while (got < n && this.config.stream.loop && this.reader.frames > 0) {
       this.reader.seek(0);
-      got += this.reader.read(this.channels, [this.ref.subarray(got), this.des.subarray(got)]);
+      const from = got;
+      got += this.reader.read(this.channels, [this.ref.subarray(from), ...this.des.map((d) => d.subarray(from))]);
     }
     this.emitted += n;
     if (got > 0) this.cb.block(this.ref, this.des, got);

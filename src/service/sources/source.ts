@@ -1,11 +1,11 @@
 /**
- * A stream of (reference, desired) blocks inside the engine worker: a paced WAV file or a capture
+ * A stream of (reference, desired per measurement channel) blocks inside the engine worker: a paced WAV file or a capture
  * device. Blocks are handed over synchronously and the arrays reused; state changes and the end
  * of a file are reported through the callbacks.
  */
 export interface SourceCallbacks {
-  /** n frames of reference and desired (the arrays are reused after the call). */
-  block(ref: Float64Array, des: Float64Array, n: number): void;
+  /** n frames of reference and of each measurement channel, in configured order (arrays reused after the call). */
+  block(ref: Float64Array, des: readonly Float64Array[], n: number): void;
   state(up: boolean, reason: string): void;
   /** The source ended for good (a file without loop). */
   ended(): void;
