@@ -21,30 +21,51 @@ const FRAMES = 160 * BLOCK; // 2.56 s
 describe('the live path through naudiodon (PortAudio) on an ALSA file device', () => {
   afterEach(stopAll);
 
-  it("processes exactly the captured samples, and ends where a replay of them ends", async () => {
-    const dir = tmpDir();
+  /** An ALSA file capture device `twbench` reading a FIFO, held open read-write (see the top). */
+  async function captureDevice(dir: string): Promise<FileHandle> {
     const fifo = join(dir, 'capture.fifo');
     execFileSync('mkfifo', [fifo]);
     writeFileSync(join(dir, '.asoundrc'), `pcm.twbench {\n  type file\n  slave.pcm "null"\n  file "${join(dir, 'played.raw')}"\n  infile "${fifo}"\n  format "raw"\n}\n`);
+    return open(fifo, 'r+');
+  }
 
+  const q = (v: number) => Math.max(-32768, Math.min(32767, Math.round(v * 32768)));
+
+  /** The columns as 16-bit interleaved frames, and as a WAV of the same samples for the replay. */
+  function interleave(columns: Float64Array[], wav: string): Buffer {
+    const c = columns.length;
+    const raw = Buffer.alloc(FRAMES * 2 * c);
+    for (let i = 0; i < FRAMES; i++) for (let k = 0; k < c; k++) raw.writeInt16LE(q(columns[k]![i]!), (i * c + k) * 2);
+    const w = new WavWriter(wav, RATE, c, 'pcm16');
+    w.write(columns.map((col) => Float64Array.from(col, (v) => q(v) / 32768)), FRAMES);
+    w.close();
+    return raw;
+  }
+
+  /**
+   * Whole ALSA periods at a time, paced at the stream's rate: the file plugin counts a short read
+   * from its infile as a full period (the rest is silence), so a writer must not hand over a
+   * partial one.
+   */
+  async function feed(fh: FileHandle, raw: Buffer, channels: number): Promise<void> {
+    const chunk = 2048;
+    for (let at = 0; at < FRAMES; at += chunk) {
+      await fh.write(raw.subarray(at * 2 * channels, (at + chunk) * 2 * channels));
+      await sleep((1000 * chunk) / RATE);
+    }
+  }
+
+  it("processes exactly the captured samples, and ends where a replay of them ends", async () => {
+    const dir = tmpDir();
     const x = bandLimited(FRAMES, 0.02, 0.3, 0.15, 201);
     const h = Array.from({ length: 16 }, (_, k) => 0.5 * 0.8 ** k * Math.cos(k));
     const d = through(h, x, white(FRAMES, 0.002, 202));
-    const q = (v: number) => Math.max(-32768, Math.min(32767, Math.round(v * 32768)));
-    const raw = Buffer.alloc(FRAMES * 4);
-    for (let i = 0; i < FRAMES; i++) {
-      raw.writeInt16LE(q(x[i]!), i * 4);
-      raw.writeInt16LE(q(d[i]!), i * 4 + 2);
-    }
-    // The same samples as a WAV for the replay.
     const wav = join(dir, 'same.wav');
-    const w = new WavWriter(wav, RATE, 2, 'pcm16');
-    w.write([Float64Array.from(x, (v) => q(v) / 32768), Float64Array.from(d, (v) => q(v) / 32768)], FRAMES);
-    w.close();
+    const raw = interleave([x, d], wav);
     const config = `filter:\n  taps: 32\nsupervisor:\n  windowSeconds: 0.256\n`;
     writeFileSync(join(dir, 'replay.yaml'), config);
 
-    const fh: FileHandle = await open(fifo, 'r+');
+    const fh = await captureDevice(dir);
     const devices = cli(['devices', '--json'], { env: { HOME: dir } });
     expect(devices.status).toBe(0);
     expect(JSON.parse(devices.stdout).map((dv: { name: string }) => dv.name)).toContain('twbench');
@@ -55,13 +76,7 @@ describe('the live path through naudiodon (PortAudio) on an ALSA file device', (
       { HOME: dir },
     );
     try {
-      // Whole ALSA periods at a time: the file plugin counts a short read from its infile as a
-      // full period (the rest is silence), so a writer must not hand over a partial one.
-      const chunk = 2048;
-      for (let at = 0; at < FRAMES; at += chunk) {
-        await fh.write(raw.subarray(at * 4, (at + chunk) * 4));
-        await sleep((1000 * chunk) / RATE);
-      }
+      await feed(fh, raw, 2);
       await until(async () => (await s.metric('tapwarden_samples_processed_total')) >= FRAMES, 20_000, 'all samples');
       await sleep(300);
       expect(await s.metric('tapwarden_samples_processed_total')).toBe(FRAMES);
@@ -83,6 +98,44 @@ describe('the live path through naudiodon (PortAudio) on an ALSA file device', (
       expect(s.notJson).toEqual([]);
     } finally {
       // Close the FIFO first: a capture blocked reading an empty FIFO would hold up the exit.
+      await fh.close();
+      await s.stop();
+    }
+  });
+
+  it('a four-channel device with two measurement channels: each channel live is its replay', async () => {
+    const dir = tmpDir();
+    const x = bandLimited(FRAMES, 0.02, 0.3, 0.15, 211);
+    const a = through(Array.from({ length: 12 }, (_, k) => 0.6 * 0.7 ** k), x, white(FRAMES, 0.002, 212));
+    const b = through(Array.from({ length: 20 }, (_, k) => 0.4 * 0.85 ** k * Math.sin(k + 1)), x, white(FRAMES, 0.002, 213));
+    // Channel 2 is a sensor this rig does not clean; the measurement channels come in reverse order.
+    const wav = join(dir, 'four.wav');
+    const raw = interleave([x, a, white(FRAMES, 0.1, 214), b], wav);
+    const config = `input:\n  desiredChannels: [3, 1]\nfilter:\n  taps: 32\nsupervisor:\n  windowSeconds: 0.256\n`;
+    writeFileSync(join(dir, 'replay.yaml'), config);
+    const fh = await captureDevice(dir);
+    const s = await serveWith(
+      dir,
+      `${config}stream:\n  source: device\n  blockFrames: ${BLOCK}\n  device:\n    input: twbench\n    sampleRate: ${RATE}\n    channels: 4\n`,
+      { HOME: dir },
+    );
+    try {
+      await feed(fh, raw, 4);
+      await until(async () => (await s.metric('tapwarden_samples_processed_total')) >= FRAMES, 20_000, 'all samples');
+      await sleep(300);
+      expect(await s.metric('tapwarden_queue_overruns_total')).toBe(0);
+      const r = cli(['replay', wav, '--config', join(dir, 'replay.yaml'), '--out', join(dir, 'replay')]);
+      expect(r.status, r.stderr).toBe(0);
+      for (const ch of [3, 1]) {
+        const summary = JSON.parse(readFileSync(join(dir, 'replay', `ch${ch}`, 'summary.json'), 'utf8'));
+        const weights = (await (await s.get(`/api/weights?path=clean&channel=${ch}`)).json()) as { channel: number; weights: number[] };
+        expect(weights.channel).toBe(ch);
+        expect(weights.weights).toEqual(summary.weights.clean);
+        expect(await s.metric(`tapwarden_handoffs_accepted_total{channel="${ch}",reason="supervisor"}`)).toBe(summary.handoffs.accepted);
+      }
+      const status = (await (await s.get('/api/status')).json()) as { channels: { channel: number }[] };
+      expect(status.channels.map((c) => c.channel)).toEqual([3, 1]);
+    } finally {
       await fh.close();
       await s.stop();
     }

@@ -27,13 +27,14 @@ export function statusPlugin(deps: StatusDeps): FastifyPluginAsync {
             type: 'object',
             additionalProperties: false,
             required: ['path'],
-            properties: { path: { enum: ['clean', 'adaptive'] }, channel: { type: 'integer', minimum: 0, maximum: 255 } },
+            properties: { path: { enum: ['clean', 'adaptive'] }, channel: { type: 'string', pattern: '^[0-9]{1,3}$' } },
           },
         },
       },
-      async (req: FastifyRequest<{ Querystring: { path: 'clean' | 'adaptive'; channel?: number } }>) => {
+      async (req: FastifyRequest<{ Querystring: { path: 'clean' | 'adaptive'; channel?: string } }>) => {
         const all = (await deps.weights()).channels;
-        const { path, channel } = req.query;
+        const { path } = req.query;
+        const channel = req.query.channel === undefined ? undefined : Number(req.query.channel);
         const w = channel === undefined ? all[0]! : all.find((c) => c.channel === channel);
         if (w === undefined) {
           throw new TapwardenError('TW_ERR_HTTP_BODY', { detail: `channel ${channel} is not a measurement channel; allowed: ${all.map((c) => c.channel).join(', ')}` });
