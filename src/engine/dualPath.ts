@@ -277,10 +277,12 @@ export class DualPathEngine {
     if (this.fadeActive) this.crossfade(m);
 
     const estimate = this.settings.outputSignal === 'estimate';
-    let sx = 0;
-    let sd = 0;
-    let sa = 0;
-    let sc = 0;
+    // Summed in sample order from the window's start, whatever the blocks: the window's figures
+    // are the same to the last bit however a caller blocks the stream (a resumed run relies on it).
+    let sx = this.sumX;
+    let sd = this.sumD;
+    let sa = this.sumEA;
+    let sc = this.sumEC;
     for (let j = 0; j < m; j++) {
       sx += x[j]! * x[j]!;
       sd += d[j]! * d[j]!;
@@ -289,10 +291,10 @@ export class DualPathEngine {
       cleanOut[offset + j] = estimate ? yC[j]! : eC[j]!;
       adaptiveOut[offset + j] = estimate ? yA[j]! : eA[j]!;
     }
-    this.sumX += sx;
-    this.sumD += sd;
-    this.sumEA += sa;
-    this.sumEC += sc;
+    this.sumX = sx;
+    this.sumD = sd;
+    this.sumEA = sa;
+    this.sumEC = sc;
   }
 
   /** Blends the previous weights' output into the new one's with a raised-cosine ramp. */

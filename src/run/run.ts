@@ -2,6 +2,7 @@ import { DriftForecaster } from '../analysis/forecast.js';
 import { weightLimitOf } from '../dsp/kernels.js';
 import { DualPathEngine, type EngineSettings, type WeightSnapshot, type WindowReport } from '../engine/dualPath.js';
 import type { DecisionRecord, RunEvent } from './record.js';
+import { captureState, restoreState, type RunState } from './state.js';
 
 /**
  * Where a run's results go. Every sink gets the same objects; a sink that keeps history keeps
@@ -73,6 +74,16 @@ export class Run {
 
   get settings(): EngineSettings {
     return this.engine.settings;
+  }
+
+  /** The whole state between two blocks: engine, kernels, supervisor, forecaster (src/run/state.ts). */
+  exportState(): RunState {
+    return captureState({ engine: this.engine, forecaster: this.forecaster });
+  }
+
+  /** Continues from an exported state; this run must have been built from the same settings. */
+  importState(state: RunState): void {
+    restoreState({ engine: this.engine, forecaster: this.forecaster }, state);
   }
 
   private settingsChanged(sample: number, old: EngineSettings, next: EngineSettings): void {

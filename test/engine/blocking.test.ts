@@ -33,6 +33,8 @@ describe('sample-by-sample and block feeding give identical results', () => {
           expect(Buffer.from(other.clean.buffer).equals(Buffer.from(whole.clean.buffer))).toBe(true);
           expect(Buffer.from(other.adaptive.buffer).equals(Buffer.from(whole.adaptive.buffer))).toBe(true);
           expect(other.windows.map((w) => w.decision)).toEqual(whole.windows.map((w) => w.decision));
+          // Every window figure to the last bit: the sums run in sample order whatever the blocks.
+          expect(other.windows).toEqual(whole.windows);
           expect(other.engine.adaptiveWeights()).toEqual(whole.engine.adaptiveWeights());
         }
       });
@@ -48,6 +50,7 @@ describe('sample-by-sample and block feeding give identical results', () => {
       expect(Buffer.from(ragged.clean.buffer).equals(Buffer.from(whole.clean.buffer))).toBe(true);
       expect(Buffer.from(ragged.adaptive.buffer).equals(Buffer.from(whole.adaptive.buffer))).toBe(true);
       expect(ragged.windows.map((w) => w.decision)).toEqual(whole.windows.map((w) => w.decision));
+      expect(ragged.windows).toEqual(whole.windows);
     });
   }
 });

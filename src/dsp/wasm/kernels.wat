@@ -11,35 +11,38 @@
 ;; exactly the weights the reference kernels (floatKernel.ts, fixedKernel.ts) give it. The delay
 ;; lines are doubled rings of M = L + 1 samples: x(n) is line[pos .. pos+L), x(n-1) is
 ;; line[pos+1 .. pos+L+1), both contiguous.
+;;
+;; Every mutable global is exported (g_NAME): with the memory, they are the whole state of a filter,
+;; which src/run/state.ts reads and restores for captured episodes.
 
 (module
   (memory (export "memory") 1)
 
   ;; layout (byte offsets), set by the host
-  (global $oW (mut i32) (i32.const 0))    ;; weights: f64 (float) or i32 (fixed)
-  (global $oLE (mut i32) (i32.const 0))   ;; evaluation delay line (un-noised), 2L entries
-  (global $oLA (mut i32) (i32.const 0))   ;; adaptation delay line (noised), 2L entries
-  (global $oX (mut i32) (i32.const 0))    ;; chunk inputs and outputs, f64
-  (global $oD (mut i32) (i32.const 0))
-  (global $oN (mut i32) (i32.const 0))
-  (global $oY (mut i32) (i32.const 0))
-  (global $oE (mut i32) (i32.const 0))
+  (global $oW (export "g_oW") (mut i32) (i32.const 0))    ;; weights: f64 (float) or i32 (fixed)
+  (global $oLE (export "g_oLE") (mut i32) (i32.const 0))   ;; evaluation delay line (un-noised), 2L entries
+  (global $oLA (export "g_oLA") (mut i32) (i32.const 0))   ;; adaptation delay line (noised), 2L entries
+  (global $oX (export "g_oX") (mut i32) (i32.const 0))    ;; chunk inputs and outputs, f64
+  (global $oD (export "g_oD") (mut i32) (i32.const 0))
+  (global $oN (export "g_oN") (mut i32) (i32.const 0))
+  (global $oY (export "g_oY") (mut i32) (i32.const 0))
+  (global $oE (export "g_oE") (mut i32) (i32.const 0))
 
   ;; state
-  (global $L (mut i32) (i32.const 0))
-  (global $M (mut i32) (i32.const 1))
-  (global $posE (mut i32) (i32.const 0))
-  (global $posA (mut i32) (i32.const 0))
-  (global $pend (mut i32) (i32.const 0))   ;; an update is pending
-  (global $pg (mut f64) (f64.const 0))     ;; float: pending gain g and leak factor c
-  (global $pc (mut f64) (f64.const 0))
-  (global $qg (mut i64) (i64.const 0))     ;; fixed: pending gain g and leak lf
-  (global $qlf (mut i64) (i64.const 0))
-  (global $energy (mut i64) (i64.const 0)) ;; fixed: Q30 reference energy
-  (global $sat (mut i32) (i32.const 0))    ;; clipped signal stores, cumulative
-  (global $mrEvery (mut i32) (i32.const 0)) ;; weight-mean removal every this many adapted samples (0: never)
-  (global $mrCount (mut i32) (i32.const 0)) ;; adapted samples since the last removal
-  (global $satW (mut i32) (i32.const 0))   ;; clipped weight stores, cumulative
+  (global $L (export "g_L") (mut i32) (i32.const 0))
+  (global $M (export "g_M") (mut i32) (i32.const 1))
+  (global $posE (export "g_posE") (mut i32) (i32.const 0))
+  (global $posA (export "g_posA") (mut i32) (i32.const 0))
+  (global $pend (export "g_pend") (mut i32) (i32.const 0))   ;; an update is pending
+  (global $pg (export "g_pg") (mut f64) (f64.const 0))     ;; float: pending gain g and leak factor c
+  (global $pc (export "g_pc") (mut f64) (f64.const 0))
+  (global $qg (export "g_qg") (mut i64) (i64.const 0))     ;; fixed: pending gain g and leak lf
+  (global $qlf (export "g_qlf") (mut i64) (i64.const 0))
+  (global $energy (export "g_energy") (mut i64) (i64.const 0)) ;; fixed: Q30 reference energy
+  (global $sat (export "g_sat") (mut i32) (i32.const 0))    ;; clipped signal stores, cumulative
+  (global $mrEvery (export "g_mrEvery") (mut i32) (i32.const 0)) ;; weight-mean removal every this many adapted samples (0: never)
+  (global $mrCount (export "g_mrCount") (mut i32) (i32.const 0)) ;; adapted samples since the last removal
+  (global $satW (export "g_satW") (mut i32) (i32.const 0))   ;; clipped weight stores, cumulative
 
   (func (export "setLayout") (param $L i32) (param $oW i32) (param $oLE i32) (param $oLA i32)
         (param $oX i32) (param $oD i32) (param $oN i32) (param $oY i32) (param $oE i32)
@@ -91,11 +94,11 @@
   ;; by one. The order is fixed for each function, so results never depend on how samples are
   ;; chunked; the fused pass and the plain dot may differ in the last bit.
 
-  (global $clipped (mut i32) (i32.const 0))  ;; the last fused update stored a |w| > limit (or NaN)
+  (global $clipped (export "g_clipped") (mut i32) (i32.const 0))  ;; the last fused update stored a |w| > limit (or NaN)
   ;; Upper bounds on max |w| and on |x| in the delay lines. While (1 - c) wb + |g| xb stays within
   ;; the limit no store can clip, and the per-store check is skipped.
-  (global $wb (mut f64) (f64.const 0))
-  (global $xb (mut f64) (f64.const 0))
+  (global $wb (export "g_wb") (mut f64) (f64.const 0))
+  (global $xb (export "g_xb") (mut f64) (f64.const 0))
 
   (func $maxabs64 (result f64)
     (local $k i32) (local $m f64)
@@ -340,8 +343,8 @@
 
   ;; The NLMS energy ||x||^2 of the adaptation line, kept as a running sum and recomputed exactly
   ;; every 4096 samples (counted from reset, so the result does not depend on chunking).
-  (global $en (mut f64) (f64.const 0))
-  (global $count (mut i32) (i32.const 0))
+  (global $en (export "g_en") (mut f64) (f64.const 0))
+  (global $count (export "g_count") (mut i32) (i32.const 0))
 
   ;; n samples of the float64 LMS/NLMS adaptive path. flags: 1 nlms, 2 noise, 4 adapting.
   (func (export "f64Run") (param $n i32) (param $flags i32) (param $mu f64) (param $delta f64)
@@ -445,7 +448,7 @@
 
   ;; float32 delay lines are doubled rings of M32 = L + 3 samples, so the clean FIR can filter
   ;; four samples at once (x(n+3-k) .. x(n-k) contiguous for every k).
-  (global $M32 (mut i32) (i32.const 4))
+  (global $M32 (export "g_M32") (mut i32) (i32.const 4))
   (func (export "setRing32") (global.set $M32 (i32.add (global.get $L) (i32.const 3))))
 
   (func $push32f (param $o i32) (param $pos i32) (param $v f32) (result i32)
@@ -458,7 +461,7 @@
 
   ;; The dot product and the energy of the same line in one pass (two independent f32 chains,
   ;; each in tap order); the energy goes to $en32.
-  (global $en32 (mut f32) (f32.const 0))
+  (global $en32 (export "g_en32") (mut f32) (f32.const 0))
   (func $dotEnergy32f (param $o i32) (param $pos i32) (result f32)
     (local $acc f32) (local $s f32) (local $v f32) (local $pw i32) (local $px i32) (local $end i32)
     (local.set $pw (global.get $oW))
@@ -637,10 +640,10 @@
   ;; Integers in i64 registers; weights and delay lines stored as i32. $f is 15 or 31, $rn is 1
   ;; for round-to-nearest and 0 for truncation (toward minus infinity, as i64.shr_s does).
 
-  (global $f (mut i64) (i64.const 15))
-  (global $rn (mut i64) (i64.const 1))
-  (global $qmax (mut i64) (i64.const 32767))
-  (global $qmin (mut i64) (i64.const -32768))
+  (global $f (export "g_f") (mut i64) (i64.const 15))
+  (global $rn (export "g_rn") (mut i64) (i64.const 1))
+  (global $qmax (export "g_qmax") (mut i64) (i64.const 32767))
+  (global $qmin (export "g_qmin") (mut i64) (i64.const -32768))
 
   (func (export "setFormat") (param $f i32) (param $rn i32)
     (global.set $f (i64.extend_i32_u (local.get $f)))
@@ -683,7 +686,7 @@
 
   ;; pushes v into an i32 line; returns the new position; $old receives x(n-L), the sample that
   ;; just left the L-sample window
-  (global $old (mut i64) (i64.const 0))
+  (global $old (export "g_old") (mut i64) (i64.const 0))
   (func $push32 (param $o i32) (param $pos i32) (param $v i64) (result i32)
     (local $p i32)
     (local.set $p (select (i32.sub (global.get $M) (i32.const 1)) (i32.sub (local.get $pos) (i32.const 1))
