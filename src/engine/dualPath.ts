@@ -300,9 +300,12 @@ export class DualPathEngine {
   /** Blends the previous weights' output into the new one's with a raised-cosine ramp. */
   private crossfade(m: number): void {
     const { d, yC, eC, yOld, eOld } = this;
-    this.fading.run(this.x, d, yOld, eOld, 0, m);
     const len = this.crossfadeSamples;
-    for (let j = 0; j < m && this.fadePos < len; j++, this.fadePos++) {
+    // Only the samples the ramp uses: the old filter's clipped stores are counted for those alone
+    // (however the stream is blocked), and it is reloaded before the next fade.
+    const k = Math.min(m, len - this.fadePos);
+    this.fading.run(this.x, d, yOld, eOld, 0, k);
+    for (let j = 0; j < k; j++, this.fadePos++) {
       const a = 0.5 - 0.5 * Math.cos((Math.PI * (this.fadePos + 1)) / (len + 1));
       const y = yOld[j]! + a * (yC[j]! - yOld[j]!);
       yC[j] = y;
