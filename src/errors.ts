@@ -29,6 +29,8 @@ export const ERRORS = {
     httpStatus: 400,
   },
   TW_ERR_INPUT_OPEN: { message: 'cannot open {file}: {reason}', exitCode: 3 },
+  TW_ERR_CAPTURE: { message: 'capture {file} {detail}', exitCode: 3 },
+  TW_ERR_CAPTURE_OFF: { message: 'captures are off; allowed: a mark once capture.dir is set and capture.triggers has mark', exitCode: 1, httpStatus: 409 },
   TW_ERR_WAV_NOT_RIFF: { message: '{file} is not a WAV file: {reason}', exitCode: 3 },
   TW_ERR_WAV_TRUNCATED: { message: '{file} is truncated: {reason}', exitCode: 3 },
   TW_ERR_WAV_ENCODING: {

@@ -172,7 +172,17 @@ export function loadConfig(
   onWarning: (line: string) => void = (line) => process.stderr.write(line + '\n'),
 ): Config {
   const files = file === undefined ? [] : typeof file === 'string' ? [file] : file;
-  let data = readYaml(DEFAULT_CONFIG_PATH, onWarning) as Plain;
+  return overlayConfig(readYaml(DEFAULT_CONFIG_PATH, onWarning) as Plain, files, overrides, onWarning);
+}
+
+/** A configuration (a capture's, say) overlaid with each file in turn, validated and frozen. */
+export function overlayConfig(
+  base: Plain | Config,
+  files: readonly string[],
+  overrides: Plain = {},
+  onWarning: (line: string) => void = (line) => process.stderr.write(line + '\n'),
+): Config {
+  let data = base as Plain;
   for (const f of files) {
     const user = readYaml(f, onWarning);
     if (!isPlain(user)) {

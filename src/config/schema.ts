@@ -46,10 +46,23 @@ export interface Config {
   };
   readonly control: { readonly tokenFile: string | null };
   readonly persistence: { readonly file: string | null; readonly minIntervalSeconds: number };
+  readonly capture: {
+    readonly dir: string | null;
+    readonly secondsBefore: number;
+    readonly secondsAfter: number;
+    readonly maxFiles: number;
+    readonly maxBytes: number;
+    readonly triggers: readonly CaptureCause[];
+    readonly forecastSeconds: number;
+  };
   readonly log: { readonly level: 'fatal' | 'error' | 'warn' | 'info' | 'debug' | 'trace' };
 }
 
 export type OutputEncoding = 'float32' | 'pcm16' | 'pcm24';
+
+/** What starts a captured episode: a refused handoff window, a drift-forecast alert, an operator mark. */
+export type CaptureCause = 'refused' | 'forecast' | 'mark';
+export const CAPTURE_CAUSES: readonly CaptureCause[] = ['refused', 'forecast', 'mark'];
 
 const int = (minimum: number, maximum: number) => ({ type: 'integer', minimum, maximum });
 const num = (minimum: number, maximum: number) => ({ type: 'number', minimum, maximum });
@@ -143,6 +156,15 @@ export const configSchema = section({
   persistence: section({
     file: { type: ['string', 'null'], minLength: 1 },
     minIntervalSeconds: num(0, 86400),
+  }),
+  capture: section({
+    dir: { type: ['string', 'null'], minLength: 1 },
+    secondsBefore: num(0.1, 3600),
+    secondsAfter: num(0, 3600),
+    maxFiles: int(1, 1e6),
+    maxBytes: int(1 << 20, Number.MAX_SAFE_INTEGER),
+    triggers: { type: 'array', items: { enum: [...CAPTURE_CAUSES] }, uniqueItems: true },
+    forecastSeconds: num(1, 1e9),
   }),
   log: section({ level: { enum: ['fatal', 'error', 'warn', 'info', 'debug', 'trace'] } }),
 });

@@ -163,6 +163,11 @@ export class DualPathEngine {
     this.pendingSettings = next;
   }
 
+  /** Settings accepted by changeSettings and not yet in effect, or null. */
+  get queuedSettings(): EngineSettings | null {
+    return this.pendingSettings;
+  }
+
   /** Samples consumed since the start. */
   get samples(): number {
     return this.sample;

@@ -9,6 +9,8 @@ import { TapwardenError, oneLine, quote, type Warning } from '../errors.js';
 import { makeDirectory } from '../io/files.js';
 import { WavReader } from '../io/wav/reader.js';
 import { BandSink } from '../run/bands.js';
+import type { CaptureFile } from '../run/capture.js';
+import { decodeState } from '../run/state.js';
 import { checkChannels, checkLmsStep, scanReference, type FrameRange, type ReferenceScan } from '../run/preflight.js';
 import { Run } from '../run/run.js';
 import { DecisionLog, WavOutputs } from '../run/sinks.js';
@@ -46,6 +48,11 @@ export interface ReplayOptions {
    * `refused` instead of failing the replay (a sweep cell fails, not the sweep).
    */
   readonly skipRefused?: boolean;
+  /**
+   * A captured episode's side file: every run starts from the state its channel's live run had at
+   * the capture's first frame (src/run/capture.ts), so the decisions are the live ones.
+   */
+  readonly resume?: { file: string; capture: CaptureFile };
   /**
    * A recording of the wanted signal alone (same rate and start): per-band survival. Channel i is
    * measurement channel i's truth when it has one per measurement channel; else channel 0 is all's.
@@ -168,6 +175,7 @@ export function replay(opts: ReplayOptions): ReplayResult {
           : null;
       const sinks = [summary, ...(log && wavs ? [log, wavs] : []), ...(bands ? [bands] : [])];
       const run = new Run(settings, channel, sinks, block);
+      if (opts.resume) resumeRun(run, opts.resume.file, opts.resume.capture);
       return { p, dir, channel, ci, run, summary, log, wavs, bands, engineNs: 0n };
     }));
     const channels = [first.config.input.referenceChannel, ...measured];
@@ -247,6 +255,14 @@ export function replay(opts: ReplayOptions): ReplayResult {
         drift: f.drift,
         bands: r.bands?.figures(bounds[r.ci]!) ?? null,
         truth: opts.truth ?? null,
+        capture:
+          opts.resume === undefined
+            ? null
+            : {
+                file: opts.resume.file,
+                startSeconds: opts.resume.capture.startSeconds,
+                causes: opts.resume.capture.causes.map(({ cause, channel, streamSeconds, note }) => ({ cause, channel, streamSeconds, note })),
+              },
         outputs: {
           clean: 'clean.wav',
           adaptive: 'adaptive.wav',
@@ -274,6 +290,23 @@ export function replay(opts: ReplayOptions): ReplayResult {
   } finally {
     reader.close();
   }
+}
+
+/** Puts the capture's state of the run's channel into the run; TW_ERR_CAPTURE when it does not fit. */
+function resumeRun(run: Run, file: string, capture: CaptureFile): void {
+  const saved = capture.runs.find((r) => r.channel === run.channel);
+  if (saved === undefined) {
+    throw new TapwardenError('TW_ERR_CAPTURE', { file, detail: `holds no state of measurement channel ${run.channel}; allowed: channels ${capture.runs.map((r) => r.channel).join(', ')}` });
+  }
+  try {
+    run.importState(decodeState(saved.state));
+  } catch (err) {
+    throw new TapwardenError('TW_ERR_CAPTURE', {
+      file,
+      detail: `does not fit this run: ${oneLine(err)}; allowed: the capture's own filter (taps, algorithm, arithmetic) and kernels (${capture.kernels})`,
+    });
+  }
+  if (saved.pendingSettings !== null) run.engine.changeSettings(saved.pendingSettings);
 }
 
 /** Writes JSON through a temporary file and a rename, so a reader never sees half a file. */

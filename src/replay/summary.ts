@@ -33,6 +33,8 @@ export interface Summary extends Omit<SummaryFigures, 'drift'> {
   bands: BandFigures[] | null;
   /** The --truth recording, or null. */
   truth: string | null;
+  /** A captured episode replayed from its runs' live state: its side file, stream start and causes; else null. */
+  capture: { file: string; startSeconds: number; causes: { cause: string; channel: number | null; streamSeconds: number; note: string | null }[] } | null;
   outputs: { clean: string; adaptive: string; decisions: string; clippedSamples: number; nonFiniteSamples: number };
   /** Seconds this policy's engine took. */
   engineSeconds: number;
@@ -80,6 +82,13 @@ export function formatSummary(s: Summary, outDir: string, withReport = true): st
   const range = s.range.fromSeconds > 0 || s.range.toSeconds < s.range.fromSeconds + s.durationSeconds - 1e-9 ? ` (${s.range.fromSeconds.toFixed(1)}-${s.range.toSeconds.toFixed(1)} s)` : '';
   const lines = [
     `recording   ${s.recording}: ${s.durationSeconds.toFixed(1)} s at ${s.sampleRate} Hz${range}`,
+    ...(s.capture === null
+      ? []
+      : [
+          `capture     resumed from the live runs at stream time ${s.capture.startSeconds.toFixed(3)} s (${s.capture.file}); captured for ${s.capture.causes
+            .map((c) => `${c.cause}${c.channel === null ? '' : ` ch${c.channel}`} at ${c.streamSeconds.toFixed(1)} s${c.note ? ` "${c.note}"` : ''}`)
+            .join(', ')}`,
+        ]),
     `filter      ${c.algorithm} ${c.taps} taps, step ${c.step}, ${c.arithmetic}/${c.rounding}` +
       (c.leak > 0 ? `, leak ${c.leak}` : '') +
       (c.leakShift !== null ? `, leakShift ${c.leakShift}` : '') +

@@ -1,3 +1,5 @@
+import { deflateRawSync, inflateRawSync } from 'node:zlib';
+
 /**
  * A run's exact state, taken between two blocks and put back into a run built from the same
  * settings, so that it goes on bit for bit as the original would (a captured episode replays to
@@ -17,10 +19,26 @@ type Scalar = number | boolean | string | bigint | null;
 
 export interface RunState {
   readonly format: typeof STATE_FORMAT;
-  /** Each typed array's bytes, base64, in walk order, with its kind and length. */
-  readonly arrays: { kind: string; length: number; data: string }[];
-  /** Every scalar in walk order: numbers as [n] (non-finite and -0 spelled out), others tagged. */
+  /** Each typed array's bytes (a copy), in walk order, with its kind and length. */
+  readonly arrays: { kind: string; length: number; bytes: Uint8Array }[];
+  /** Every scalar in walk order: numbers as they are (non-finite and -0 spelled out), others tagged. */
   readonly scalars: (number | string | [string, string])[];
+}
+
+/** A state as JSON can hold it: each array's bytes deflated and base64 (delay lines and scratch are mostly zeros). */
+export interface EncodedRunState {
+  readonly format: typeof STATE_FORMAT;
+  readonly arrays: { kind: string; length: number; deflated: string }[];
+  readonly scalars: RunState['scalars'];
+}
+
+export function encodeState(s: RunState): EncodedRunState {
+  return { format: s.format, arrays: s.arrays.map((a) => ({ kind: a.kind, length: a.length, deflated: deflateRawSync(a.bytes).toString('base64') })), scalars: s.scalars };
+}
+
+export function decodeState(s: EncodedRunState): RunState {
+  if (s?.format !== STATE_FORMAT || !Array.isArray(s.arrays) || !Array.isArray(s.scalars)) throw new Error(`the state is not ${STATE_FORMAT}`);
+  return { format: s.format, arrays: s.arrays.map((a) => ({ kind: a.kind, length: a.length, bytes: inflateRawSync(Buffer.from(a.deflated, 'base64')) })), scalars: s.scalars };
 }
 
 export const STATE_FORMAT = 'tapwarden-run-state/1';
@@ -91,7 +109,7 @@ export function captureState(root: object): RunState {
     root,
     '',
     {
-      array: (_p, a) => arrays.push({ kind: a.constructor.name, length: a.length, data: Buffer.from(a.buffer, a.byteOffset, a.byteLength).toString('base64') }),
+      array: (_p, a) => arrays.push({ kind: a.constructor.name, length: a.length, bytes: new Uint8Array(a.buffer, a.byteOffset, a.byteLength).slice() }),
       scalar: (_p, v) => {
         scalars.push(encodeScalar(v));
         return v;
@@ -117,8 +135,8 @@ export function restoreState(root: object, state: RunState): void {
         if (s === undefined || s.kind !== a.constructor.name || s.length !== a.length) {
           throw new Error(`the state does not fit this run at ${path.slice(1)} (${a.constructor.name}[${a.length}] here, ${s ? `${s.kind}[${s.length}]` : 'nothing'} in the state)`);
         }
-        const bytes = Buffer.from(s.data, 'base64');
-        new Uint8Array(a.buffer, a.byteOffset, a.byteLength).set(bytes);
+        if (s.bytes.length !== a.byteLength) throw new Error(`the state does not fit this run at ${path.slice(1)} (${s.bytes.length} bytes in the state for ${a.byteLength})`);
+        new Uint8Array(a.buffer, a.byteOffset, a.byteLength).set(s.bytes);
       },
       scalar: (path, v) => {
         if (si >= state.scalars.length) throw new Error(`the state does not fit this run at ${path.slice(1)} (the state ends first)`);

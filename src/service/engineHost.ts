@@ -3,6 +3,7 @@ import type { Config } from '../config/schema.js';
 import { TapwardenError } from '../errors.js';
 import { fanOut, type RunSink } from '../run/run.js';
 import type { ControlOp, FromWorker, ToWorker, WeightsReply, WorkerInit } from './protocol.js';
+import type { Episode } from './captureRecorder.js';
 import type { Telemetry } from './telemetry.js';
 
 /** How long a request waits for the worker before it is answered with TW_ERR_ENGINE_FAILED. */
@@ -20,6 +21,8 @@ export interface HostCallbacks {
   state(up: boolean, reason: string): void;
   warning(message: string): void;
   ended(): void;
+  /** A captured episode is complete. */
+  episode(e: Episode): void;
   /** The worker died or stopped answering: requests now fail fast. */
   failed(message: string): void;
 }
@@ -91,6 +94,9 @@ export class EngineHost {
         break;
       case 'ended':
         this.cb.ended();
+        break;
+      case 'episode':
+        this.cb.episode(m.episode);
         break;
       case 'reply': {
         const p = this.pending.get(m.id);

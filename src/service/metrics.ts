@@ -1,4 +1,5 @@
 import { Counter, Gauge, Registry, collectDefaultMetrics } from 'prom-client';
+import { CAPTURE_CAUSES } from '../config/schema.js';
 import { CRITERIA } from '../engine/supervisor.js';
 import type { DecisionRecord, RunEvent } from '../run/record.js';
 import type { RunSink } from '../run/run.js';
@@ -87,6 +88,8 @@ export class ServiceMetrics implements RunSink {
     labelNames: ['channel'],
     registers: [this.registry],
   });
+  readonly captures = new Counter({ name: 'tapwarden_captures_total', help: 'Captured episodes written, by cause (an episode with several causes counts for each).', labelNames: ['cause'], registers: [this.registry] });
+  readonly captureFailures = new Counter({ name: 'tapwarden_capture_write_failures_total', help: 'Captured episodes that could not be written.', registers: [this.registry] });
   readonly snapshots = new Counter({ name: 'tapwarden_snapshot_writes_total', help: 'Weight snapshot writes by result.', labelNames: ['result'], registers: [this.registry] });
 
   constructor(telemetry: Telemetry, measured: readonly number[]) {
@@ -141,6 +144,7 @@ export class ServiceMetrics implements RunSink {
         for (const ch of self.channels) this.labels(ch).set((Date.now() - (self.lastHandoffAt.get(ch) ?? self.startedAt)) / 1000);
       },
     });
+    for (const c of CAPTURE_CAUSES) this.captures.labels(c).inc(0);
     for (const ch of this.channels) {
       for (const c of CRITERIA) this.rejected.labels(ch, c).inc(0);
       for (const o of ['accepted', 'pending', 'idle', 'rejected']) this.decisions.labels(ch, o).inc(0);

@@ -1,6 +1,7 @@
 import type { EngineSettings } from '../engine/dualPath.js';
 import type { Config } from '../config/schema.js';
 import type { DecisionRecord, RunEvent } from '../run/record.js';
+import type { Episode } from './captureRecorder.js';
 
 /** What the main thread asks of the engine worker; each request is answered by id. */
 export type ToWorker =
@@ -18,7 +19,9 @@ export type ControlOp =
   | { kind: 'rollback' }
   | { kind: 'reset' }
   /** New settings from the next window boundary on (validated by the main thread). */
-  | { kind: 'settings'; settings: EngineSettings };
+  | { kind: 'settings'; settings: EngineSettings }
+  /** An operator mark: a captured episode around now (captures are on: the main thread checked). */
+  | { kind: 'mark'; note: string | null };
 
 /** One measurement channel's weights and flags. */
 export interface ChannelState {
@@ -49,6 +52,8 @@ export type FromWorker =
   | { t: 'warning'; message: string }
   /** The source ended for good (a file without loop). */
   | { t: 'ended' }
+  /** A captured episode is complete: the main thread writes it. */
+  | { t: 'episode'; episode: Episode }
   | { t: 'reply'; id: number; weights: WeightsReply }
   | { t: 'failed'; id: number | null; message: string };
 

@@ -11,6 +11,7 @@ import type { DecisionRecord, RunEvent } from '../run/record.js';
 import type { RunSink } from '../run/run.js';
 import { VERSION } from '../version.js';
 import { buildApp } from './app.js';
+import { CaptureWriter } from './captureWriter.js';
 import { EngineHost } from './engineHost.js';
 import { ServiceMetrics } from './metrics.js';
 import { SnapshotSink, SnapshotWriter, incompatibility, readSnapshot, snapshotFileOf } from './persistence.js';
@@ -131,6 +132,7 @@ export async function startService(config: Config, configFile: string): Promise<
           });
           return new SnapshotSink(writer, settings, channel);
         });
+  const captures = config.capture.dir === null ? null : new CaptureWriter(config, source.sampleRate, process.env['TAPWARDEN_KERNELS'] === 'reference' ? 'reference' : 'fast');
   const feed = new StatusFeed(config.feed, metrics, () => status.feedStatus());
   let failure: (why: string) => void = () => {};
   const failed = new Promise<string>((resolve) => (failure = resolve));
@@ -145,6 +147,18 @@ export async function startService(config: Config, configFile: string): Promise<
     },
     warning: (message) => log.warn(message),
     ended: () => log.info({ stream: source.description }, 'the stream ended; the service keeps serving its last state'),
+    episode: (e) => {
+      try {
+        const file = captures!.write(e);
+        for (const c of new Set(e.causes.map((x) => x.cause))) metrics.captures.labels(c).inc();
+        const causes = e.causes.map(({ decision: _d, ...c }) => c);
+        log.info({ capture: file, causes, startSeconds: e.startSample / source.sampleRate, frames: e.frames }, `episode captured (${causes.map((c) => c.cause).join(', ')})`);
+        feed.broadcast({ type: 'capture', file, startSeconds: e.startSample / source.sampleRate, seconds: e.frames / source.sampleRate, causes });
+      } catch (err) {
+        metrics.captureFailures.inc();
+        log.error({ code: 'TW_ERR_OUTPUT_WRITE' }, `episode not captured: ${oneLine(err)}`);
+      }
+    },
     failed: (message) => {
       status.setStream(false, `the engine failed: ${message}`);
       metrics.streamUp.set(0);
@@ -198,7 +212,7 @@ export async function startService(config: Config, configFile: string): Promise<
       ready: () => (host.failure !== null ? { ready: false, reason: `the engine failed: ${host.failure}` } : { ready: status.streamUp, reason: status.streamState }),
       weights: () => host.weights(),
     }),
-    controlPlugin(token, measured, control, (body) => changeSettings(body)),
+    controlPlugin(token, measured, control, (body) => changeSettings(body), captures !== null && config.capture.triggers.includes('mark')),
     feed.plugin,
     pagePlugin,
   ]);

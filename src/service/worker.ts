@@ -3,6 +3,7 @@ import { measurementChannels } from '../config/schema.js';
 import { engineSettingsOf } from '../engine/settings.js';
 import { oneLine } from '../errors.js';
 import { Run, type RunSink } from '../run/run.js';
+import { CaptureRecorder } from './captureRecorder.js';
 import { Playback } from './playback.js';
 import type { FromWorker, ToWorker, WeightsReply, WorkerInit } from './protocol.js';
 import { DeviceSource } from './sources/device.js';
@@ -30,7 +31,14 @@ const playback =
     ? new Playback(config, sampleRate, telemetry, (message) => post({ t: 'warning', message: `playback: ${message}` }))
     : null;
 const settings = engineSettingsOf(config, sampleRate);
-const runs = measurementChannels(config).map((channel, i) => new Run(settings, channel, playback && i === 0 ? [toMain, playback] : [toMain], config.stream.blockFrames));
+const recorder =
+  config.capture.dir !== null && config.capture.triggers.length > 0
+    ? new CaptureRecorder(config, sampleRate, (episode) => port.postMessage({ t: 'episode', episode } satisfies FromWorker, episode.channels.map((c) => c.buffer as ArrayBuffer)))
+    : null;
+const runs = measurementChannels(config).map(
+  (channel, i) => new Run(settings, channel, [toMain, ...(playback && i === 0 ? [playback] : []), ...(recorder ? [recorder.sinkFor(channel)] : [])], config.stream.blockFrames),
+);
+recorder?.attach(runs);
 const first = runs[0]!.engine;
 const tickSamples = Math.max(1, Math.round(config.feed.intervalSeconds * sampleRate));
 let nextTick = tickSamples;
@@ -44,9 +52,11 @@ let blocksSeen = 0;
 const callbacks: SourceCallbacks = {
   block(ref, des, n) {
     if (exitAfter !== undefined && ++blocksSeen > Number(exitAfter)) process.exit(70);
+    recorder?.beforeBlock(first.samples);
     const t0 = process.hrtime.bigint();
     for (let c = 0; c < runs.length; c++) runs[c]!.process(ref, des[c]!, n);
     telemetry.observeBlock(Number(process.hrtime.bigint() - t0) / 1e9);
+    recorder?.afterBlock(ref, des, n);
     telemetry.add('samples', n);
     telemetry.add('blocks', 1);
     for (let c = 0; c < runs.length; c++) {
@@ -93,6 +103,10 @@ port.on('message', (m: ToWorker) => {
         return;
       case 'control': {
         const op = m.op;
+        if (op.kind === 'mark') {
+          recorder?.mark(op.note, m.channel);
+          break;
+        }
         for (const { engine } of runsFor(m.channel)) {
           if (op.kind === 'handoff') engine.handoff('forced');
           else if (op.kind === 'adaptation') engine.adapting = !op.frozen;

@@ -2,6 +2,7 @@ import { afterEach, describe, expect, it } from 'vitest';
 import type { EngineSettings } from '../../src/engine/dualPath.js';
 import type { DecisionRecord, RunEvent } from '../../src/run/record.js';
 import { Run } from '../../src/run/run.js';
+import { decodeState, encodeState } from '../../src/run/state.js';
 import { settings } from '../helpers/engine.js';
 import { bandLimited, through, white } from '../helpers/signals.js';
 
@@ -73,7 +74,7 @@ describe('a run continues exactly from an exported state', () => {
         const whole = tape();
         const original = new Run(s, 1, [whole.sink], 256);
         feed(original, 0, cut, 256);
-        const state = JSON.parse(JSON.stringify(original.exportState()));
+        const state = decodeState(JSON.parse(JSON.stringify(encodeState(original.exportState()))));
         const before = whole.tape.records.length;
         const beforeEvents = whole.tape.events.length;
         feed(original, cut, N, 256);

@@ -1,6 +1,7 @@
 import { basename, extname, join } from 'node:path';
 import { writeFileSync } from 'node:fs';
-import { DEFAULT_CONFIG_PATH, loadConfig } from '../../config/load.js';
+import { DEFAULT_CONFIG_PATH, loadConfig, overlayConfig } from '../../config/load.js';
+import { readCaptureFor, sideFileOf } from '../../run/capture.js';
 import { measurementChannels } from '../../config/schema.js';
 import { TapwardenError, oneLine, warningLine } from '../../errors.js';
 import type { Policy } from '../../replay/replay.js';
@@ -62,15 +63,29 @@ Options:
       throw new TapwardenError('TW_ERR_USAGE', { detail: 'replay: --gate needs the policies to compare; allowed: --gate BASELINE with two or more --policy FILE' });
     }
     const range = { fromSeconds: seconds('replay', 'from', values['from']), toSeconds: seconds('replay', 'to', values['to']) };
+    // A captured episode (a side file beside the recording) carries its config and run states.
+    const capture = positionals[0] === undefined ? null : readCaptureFor(positionals[0]);
+    if (capture !== null) {
+      const bad = configFile !== undefined ? '--config' : values['from'] !== undefined || values['to'] !== undefined ? '--from/--to' : null;
+      if (bad !== null) {
+        throw new TapwardenError('TW_ERR_USAGE', {
+          detail: `replay: ${bad} is not allowed with a capture (${sideFileOf(positionals[0]!)} carries its config and where its runs were); allowed: --policy FILE to overlay it`,
+        });
+      }
+    }
     const taken = new Set<string>();
     const policies: Policy[] =
-      policyFiles.length === 0
-        ? [{ name: configFile ? policyName(configFile, taken) : 'default', config: loadConfig(configFile), configFile: configFile ?? DEFAULT_CONFIG_PATH }]
-        : policyFiles.map((f) => ({
-            name: policyName(f, taken),
-            config: loadConfig(configFile === undefined ? [f] : [configFile, f]),
-            configFile: f,
-          }));
+      capture !== null
+        ? policyFiles.length === 0
+          ? [{ name: 'capture', config: overlayConfig(capture.config, []), configFile: sideFileOf(positionals[0]!) }]
+          : policyFiles.map((f) => ({ name: policyName(f, taken), config: overlayConfig(capture.config, [f]), configFile: f }))
+        : policyFiles.length === 0
+          ? [{ name: configFile ? policyName(configFile, taken) : 'default', config: loadConfig(configFile), configFile: configFile ?? DEFAULT_CONFIG_PATH }]
+          : policyFiles.map((f) => ({
+              name: policyName(f, taken),
+              config: loadConfig(configFile === undefined ? [f] : [configFile, f]),
+              configFile: f,
+            }));
     const baseline = gateArg === undefined ? null : (policies.find((p) => p.name === gateArg || p.configFile === gateArg) ?? null);
     if (gateArg !== undefined && baseline === null) {
       throw new TapwardenError('TW_ERR_USAGE', { detail: `replay: --gate ${gateArg} is not one of the policies; allowed: ${policies.map((p) => p.name).join(', ')}` });
@@ -80,7 +95,9 @@ Options:
         ? { minCancellationDb: baseline.config.supervisor.minCancellationDb, source: `gate baseline ${baseline.name}` }
         : policies.length === 1
           ? { minCancellationDb: policies[0]!.config.supervisor.minCancellationDb, source: policies[0]!.name }
-          : { minCancellationDb: loadConfig(configFile).supervisor.minCancellationDb, source: configFile ?? 'the embedded default' };
+          : capture !== null
+            ? { minCancellationDb: capture.config.supervisor.minCancellationDb, source: 'the capture' }
+            : { minCancellationDb: loadConfig(configFile).supervisor.minCancellationDb, source: configFile ?? 'the embedded default' };
     // The engine, the report and the rest load only once the command line and configs are good.
     const [{ DEMO_RECORDING, writeDemo }, { renderReport }, { figuresOf, formatComparison, labelsOf, worseThan, worstIndex }, { replay, writeJsonAtomic }, { describeDrift, formatSummary }] = await Promise.all([
       import('../../demo/write.js'),
@@ -98,7 +115,16 @@ Options:
     let result;
     try {
       const truth = values['truth'] as string | undefined;
-      result = replay({ recording, policies, outDir, judge, range, ...(truth === undefined ? {} : { truth }), onProgress: (done, total) => bar.update(done, total) });
+      result = replay({
+        recording,
+        policies,
+        outDir,
+        judge,
+        range,
+        ...(truth === undefined ? {} : { truth }),
+        ...(capture === null ? {} : { resume: { file: sideFileOf(recording), capture } }),
+        onProgress: (done, total) => bar.update(done, total),
+      });
     } finally {
       bar.stop();
     }

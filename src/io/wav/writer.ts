@@ -24,8 +24,11 @@ export interface WavWriterOptions {
  * (EBU Tech 3306): "RF64" for "RIFF", the reserved JUNK chunk turned into "ds64" with the 64-bit
  * sizes, 0xFFFFFFFF in the 32-bit fields. PCM samples are rounded to nearest and clipped
  * (counted in `clipped`); non-finite values are written as 0 (counted in `nonFinite`). Float
- * files carry a fact chunk, as the format requires for non-PCM data.
+ * files carry a fact chunk, as the format requires for non-PCM data. `float64` (captured
+ * episodes) stores every value exactly as given, non-finite ones included.
  */
+
+export type WavEncoding = OutputEncoding | 'float64';
 export class WavWriter {
   clipped = 0;
   nonFinite = 0;
@@ -44,10 +47,10 @@ export class WavWriter {
     readonly file: string,
     readonly sampleRate: number,
     readonly channels: number,
-    readonly encoding: OutputEncoding,
+    readonly encoding: WavEncoding,
     opts: WavWriterOptions = {},
   ) {
-    this.bytesPerSample = encoding === 'pcm16' ? 2 : encoding === 'pcm24' ? 3 : 4;
+    this.bytesPerSample = encoding === 'pcm16' ? 2 : encoding === 'pcm24' ? 3 : encoding === 'float64' ? 8 : 4;
     this.rf64Above = opts.rf64AboveBytes ?? RIFF_MAX;
     try {
       this.fd = openSync(file, 'w');
@@ -64,7 +67,7 @@ export class WavWriter {
 
   private header(): Buffer {
     const h = Buffer.alloc(HEADER_BYTES);
-    const float = this.encoding === 'float32';
+    const float = this.encoding === 'float32' || this.encoding === 'float64';
     const align = this.channels * this.bytesPerSample;
     const riffSize = HEADER_BYTES - 8 + this.dataBytes + (this.dataBytes % 2);
     const rf64 = this.isRf64;
@@ -109,7 +112,13 @@ export class WavWriter {
     const bps = this.bytesPerSample;
     const need = frames * ch * bps;
     if (this.bytes.length < need) this.grow(need);
-    if (this.encoding === 'float32' && LITTLE_ENDIAN) {
+    if (this.encoding === 'float64') {
+      const v = this.view;
+      for (let c = 0; c < ch; c++) {
+        const src = chans[c]!;
+        for (let i = 0, p = c * 8; i < frames; i++, p += ch * 8) v.setFloat64(p, src[i]!, true);
+      }
+    } else if (this.encoding === 'float32' && LITTLE_ENDIAN) {
       const f = this.f32;
       for (let c = 0; c < ch; c++) {
         const src = chans[c]!;
@@ -147,8 +156,8 @@ export class WavWriter {
   }
 
   private grow(need: number): void {
-    // A multiple of 12 bytes, so that the 2- and 4-byte views cover it exactly.
-    const size = Math.ceil(Math.max(need, 2 * this.bytes.length) / 12) * 12;
+    // A multiple of 24 bytes, so that the 2-, 4- and 8-byte views cover it exactly.
+    const size = Math.ceil(Math.max(need, 2 * this.bytes.length) / 24) * 24;
     const buf = new ArrayBuffer(size);
     this.bytes = new Uint8Array(buf);
     this.f32 = new Float32Array(buf);

@@ -32,6 +32,8 @@ export function controlPlugin(
   measured: readonly number[],
   control: (op: ControlOp, channel: number | null) => Promise<WeightsReply>,
   settings: (body: unknown) => Promise<object>,
+  /** Whether marks capture (capture.dir set, mark among capture.triggers). */
+  marks: boolean,
 ): FastifyPluginAsync {
   return async (app) => {
     app.addHook('onRequest', async (req, reply) => {
@@ -42,12 +44,17 @@ export function controlPlugin(
         return sendError(reply, new TapwardenError('TW_ERR_AUTH_TOKEN'));
       }
     });
+    /** The body's channel, one of the measurement channels, or null for every one. */
+    const channelOf = (body: { channel?: number } | null): number | null => {
+      const ch = body?.channel ?? null;
+      if (ch !== null && !measured.includes(ch)) {
+        throw new TapwardenError('TW_ERR_HTTP_BODY', { detail: `channel ${ch} is not a measurement channel; allowed: ${measured.join(', ')} (or no channel: every one)` });
+      }
+      return ch;
+    };
     const route = (path: string, body: object, op: (b: { frozen: boolean }) => ControlOp) =>
       app.post(path, { schema: { body } }, async (req: FastifyRequest<{ Body: Body }>) => {
-        const ch = req.body?.channel ?? null;
-        if (ch !== null && !measured.includes(ch)) {
-          throw new TapwardenError('TW_ERR_HTTP_BODY', { detail: `channel ${ch} is not a measurement channel; allowed: ${measured.join(', ')} (or no channel: every one)` });
-        }
+        const ch = channelOf(req.body);
         const reply = await control(op(req.body ?? { frozen: false }), ch);
         req.log.info({ control: path, body: req.body ?? null }, 'control request applied');
         const states = reply.channels
@@ -60,6 +67,17 @@ export function controlPlugin(
     route('/api/control/reset', emptyBody, () => ({ kind: 'reset' }));
     route('/api/control/adaptation', frozenBody, (b) => ({ kind: 'adaptation', frozen: b.frozen }));
     route('/api/control/handoffs', frozenBody, (b) => ({ kind: 'handoffs', frozen: b.frozen }));
+    const markBody = {
+      type: ['object', 'null'],
+      additionalProperties: false,
+      properties: { note: { type: 'string', maxLength: 500 }, channel },
+    } as const;
+    app.post('/api/control/mark', { schema: { body: markBody } }, async (req: FastifyRequest<{ Body: { note?: string; channel?: number } | null }>) => {
+      if (!marks) throw new TapwardenError('TW_ERR_CAPTURE_OFF');
+      await control({ kind: 'mark', note: req.body?.note ?? null }, channelOf(req.body));
+      req.log.info({ control: '/api/control/mark', body: req.body ?? null }, 'operator mark: an episode is being captured');
+      return { ok: true, capture: 'the episode around now is written once its seconds after have streamed' };
+    });
     app.post('/api/control/settings', { schema: { body: { type: 'object' } } }, async (req) => {
       const r = await settings(req.body);
       req.log.info({ control: '/api/control/settings', body: req.body }, 'settings accepted; they take effect at the next window boundary');
