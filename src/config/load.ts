@@ -4,7 +4,7 @@ import type { ErrorObject, ValidateFunction } from 'ajv';
 import { parseDocument } from 'yaml';
 import { NLMS_STEP_BOUND, PBFDAF_STEP_BOUND } from '../dsp/bounds.js';
 import { TapwardenError, oneLine, quote, warningLine } from '../errors.js';
-import { AJV_OPTIONS, configSchema, type Config } from './schema.js';
+import { AJV_OPTIONS, configSchema, referenceChannels, type Config } from './schema.js';
 
 export const DEFAULT_CONFIG_PATH = fileURLToPath(new URL('../../config/default.yaml', import.meta.url));
 
@@ -111,12 +111,18 @@ function deepFreeze<T>(v: T): T {
 /** Checks that need more than one key. */
 function crossChecks(c: Config): string | null {
   const { filter, input, supervisor } = c;
+  const refs = referenceChannels(c);
+  const refKey = input.referenceChannels === null ? 'input.referenceChannel' : 'input.referenceChannels';
   if (input.desiredChannels !== null) {
-    if (input.desiredChannels.includes(input.referenceChannel)) {
-      return `input.desiredChannels = ${quote(input.desiredChannels)} is not allowed; allowed: channels other than input.referenceChannel (${input.referenceChannel})`;
+    if (input.desiredChannels.some((ch) => refs.includes(ch))) {
+      return `input.desiredChannels = ${quote(input.desiredChannels)} is not allowed; allowed: channels other than ${refKey} (${refs.join(', ')})`;
     }
-  } else if (input.referenceChannel === input.desiredChannel) {
-    return `input.desiredChannel = ${input.desiredChannel} is not allowed; allowed: a channel other than input.referenceChannel`;
+  } else if (refs.includes(input.desiredChannel)) {
+    return `input.desiredChannel = ${input.desiredChannel} is not allowed; allowed: a channel other than ${refKey} (${refs.join(', ')})`;
+  }
+  if (refs.length > 1 && (filter.algorithm !== 'nlms' || filter.arithmetic !== 'float64')) {
+    const key = filter.algorithm !== 'nlms' ? 'algorithm' : 'arithmetic';
+    return `filter.${key} = ${quote(filter[key])} is not allowed with several references (input.referenceChannels ${quote(refs)}); allowed: algorithm nlms in float64 (the multiple-input filter; LMS's step bound would need the references' joint correlation)`;
   }
   if (filter.algorithm === 'pbfdaf') {
     const unsupported = (

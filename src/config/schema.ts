@@ -4,6 +4,8 @@ import type { AdaptiveSpec } from '../dsp/types.js';
 export interface Config {
   readonly input: {
     readonly referenceChannel: number;
+    /** Several references, one filter each on every measurement channel (null: referenceChannel alone). */
+    readonly referenceChannels: readonly number[] | null;
     readonly desiredChannel: number;
     /** Several measurement channels, each with its own dual path (null: desiredChannel alone). */
     readonly desiredChannels: readonly number[] | null;
@@ -78,6 +80,14 @@ const section = (properties: Record<string, unknown>) => ({
 /** The most measurement channels one run takes (input.desiredChannels). */
 export const MAX_MEASUREMENT_CHANNELS = 16;
 
+/** The most references one filter takes (input.referenceChannels). */
+export const MAX_REFERENCE_CHANNELS = 8;
+
+/** The reference channels, in the configured order (the filters' order in the weights). */
+export function referenceChannels(config: Pick<Config, 'input'>): readonly number[] {
+  return config.input.referenceChannels ?? [config.input.referenceChannel];
+}
+
 /** The measurement channels a run cleans, in the configured order. */
 export function measurementChannels(config: Pick<Config, 'input'>): readonly number[] {
   return config.input.desiredChannels ?? [config.input.desiredChannel];
@@ -93,6 +103,7 @@ export const PBFDAF_BLOCK_SIZES = [16, 32, 64, 128, 256, 512, 1024, 2048, 4096] 
 export const configSchema = section({
   input: section({
     referenceChannel: int(0, 255),
+    referenceChannels: { type: ['array', 'null'], items: int(0, 255), minItems: 1, maxItems: MAX_REFERENCE_CHANNELS, uniqueItems: true },
     desiredChannel: int(0, 255),
     desiredChannels: { type: ['array', 'null'], items: int(0, 255), minItems: 1, maxItems: MAX_MEASUREMENT_CHANNELS, uniqueItems: true },
   }),

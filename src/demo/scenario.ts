@@ -11,8 +11,9 @@ import { sigmaOfDb } from '../dsp/level.js';
  * top of the specimen's own faint bearing signature. Part way through, a frame clamp is
  * re-torqued and the path changes; later a loose connector puts a burst of garbage on the
  * measurement channel. A second measurement accelerometer, at the specimen's output flange,
- * hears the motor through a longer path that the re-torque also changes, and the bearing
- * signature more faintly; its cable stays sound.
+ * hears the motor through a longer path that the re-torque also changes, the bearing signature
+ * more faintly, and the stand's hydraulic pump (its own reference accelerometer on the pump's
+ * mount: a second source, on a second reference); its cable stays sound.
  */
 export interface Scenario {
   readonly sampleRate: number;
@@ -37,6 +38,8 @@ export interface Recording {
   readonly desired: Float64Array;
   /** The second measurement channel (the output flange). */
   readonly flange: Float64Array;
+  /** The second reference: the hydraulic pump's mount. */
+  readonly pump: Float64Array;
   /** The signal of interest alone: what a perfect canceller would leave. */
   readonly signal: Float64Array;
 }
@@ -111,14 +114,29 @@ export function generateBench(sc: Scenario = BENCH, seed = 2026): Recording {
   // The flange channel, from its own noise generator (the first channels stay as they were).
   const h3 = framePath(48, 6, 0.6, 650, 0.92, fs);
   const h4 = framePath(48, 8, 0.75, 930, 0.9, fs);
+  const flangeRng = new GaussianNoise(seed + 1);
   const flange = new Float64Array(n);
   const flangeNoise = new Float64Array(n);
-  new GaussianNoise(seed + 1).fill(flangeNoise, sigmaOfDb(-70));
+  flangeRng.fill(flangeNoise, sigmaOfDb(-70));
+  // The pump: a 37.5 Hz piston rate's harmonics (its own AC-coupled, band-limited sensor) and flow noise.
+  const pump = new Float64Array(n);
+  flangeRng.fill(pump, 0.2);
+  for (let i = 0; i < n; i++) {
+    const t = i / fs;
+    let v = 0;
+    for (let k = 8; k <= 40; k += 2) v += Math.sin(2 * Math.PI * 37.5 * k * t + 0.3 * k) / k;
+    pump[i]! += 0.6 * v;
+  }
+  filterInPlace([...butterworth('highpass', 4, 250, fs), ...butterworth('lowpass', 8, 2500, fs)], pump);
+  const pumpScale = sigmaOfDb(-24) / rms(pump);
+  for (let i = 0; i < n; i++) pump[i] = pump[i]! * pumpScale;
+  const hp = framePath(32, 4, 0.8, 560, 0.88, fs);
   for (let i = 0; i < n; i++) {
     const h = i < change ? h3 : h4;
     let acc = 0;
     for (let k = 0; k < h.length && k <= i; k++) acc += h[k]! * reference[i - k]!;
+    for (let k = 0; k < hp.length && k <= i; k++) acc += hp[k]! * pump[i - k]!;
     flange[i] = acc + 0.5 * signal[i]! + flangeNoise[i]!;
   }
-  return { reference, desired, flange, signal };
+  return { reference, desired, flange, pump, signal };
 }

@@ -23,18 +23,23 @@ const DEMO_CONFIGS: ReadonlyArray<{ file: string; comment: string; body: string 
     body: 'input:\n  desiredChannels: [1, 2]\n',
   },
   {
+    file: 'rig.yaml',
+    comment: 'The whole rig: both measurement channels, each cleaned of the motor (channel 0) and the pump (channel 3).',
+    body: 'input:\n  referenceChannels: [0, 3]\n  desiredChannels: [1, 2]\n',
+  },
+  {
     file: 'q15-leak.yaml',
     comment: 'The same, with the fixed-point leak w <- w - (w >> 14): the weights stay bounded.',
     body: 'filter:\n  algorithm: lms\n  step: 0.05\n  arithmetic: q15\n  rounding: truncate\n  leakShift: 14\n',
   },
 ];
 
-/** Writes the demo recording (16-bit: reference, measurement, flange measurement), its truth and configs. */
+/** Writes the demo recording (16-bit: motor reference, measurement, flange measurement, pump reference), its truth and configs. */
 export function writeDemo(outDir: string): string[] {
   makeDirectory(outDir);
   const rec = generateBench(BENCH);
-  const wav = new WavWriter(join(outDir, DEMO_RECORDING), BENCH.sampleRate, 3, 'pcm16');
-  wav.write([rec.reference, rec.desired, rec.flange], rec.reference.length);
+  const wav = new WavWriter(join(outDir, DEMO_RECORDING), BENCH.sampleRate, 4, 'pcm16');
+  wav.write([rec.reference, rec.desired, rec.flange, rec.pump], rec.reference.length);
   wav.close();
   // The wanted signal as each measurement channel hears it (the flange at half amplitude).
   const truth = new WavWriter(join(outDir, 'bench-trial-signal.wav'), BENCH.sampleRate, 2, 'float32');

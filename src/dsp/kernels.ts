@@ -2,13 +2,14 @@ import { FdafAdaptiveKernel, FdafFirKernel } from './fdaf.js';
 import { FixedAdaptiveKernel, FixedFirKernel, formatOf } from './fixedKernel.js';
 import { Float32AdaptiveKernel, Float32FirKernel } from './float32Kernel.js';
 import { FloatAdaptiveKernel, FloatFirKernel } from './floatKernel.js';
+import { MultiFloatAdaptiveKernel, MultiFloatFirKernel } from './multiKernel.js';
 import type { AdaptiveKernel, AdaptiveSpec, FirKernel } from './types.js';
 import { WasmAdaptiveKernel, WasmFirKernel, hasFastKernel } from './wasm/fastKernels.js';
 
 /**
  * Which implementation runs: the fast WebAssembly kernels where they exist (float64, q15, q31)
- * and the reference kernels otherwise (float32), or the reference everywhere when asked
- * (TAPWARDEN_KERNELS=reference), e.g. to cross-check a result.
+ * and the reference kernels otherwise (float32; several references: multiKernel.ts), or the
+ * reference everywhere when asked (TAPWARDEN_KERNELS=reference), e.g. to cross-check a result.
  */
 export type KernelChoice = 'fast' | 'reference';
 
@@ -23,6 +24,7 @@ const fdafOptions = (spec: AdaptiveSpec) => ({ blockSize: spec.blockSize ?? 256,
 
 /** The adaptive kernel for the spec's algorithm and arithmetic. */
 export function createAdaptiveKernel(spec: AdaptiveSpec, choice?: KernelChoice): AdaptiveKernel {
+  if ((spec.references ?? 1) > 1) return new MultiFloatAdaptiveKernel(spec);
   if (spec.algorithm === 'pbfdaf') return new FdafAdaptiveKernel(spec, fdafOptions(spec));
   if (useFast(spec, choice)) return new WasmAdaptiveKernel(spec);
   if (isFixed(spec)) return new FixedAdaptiveKernel(spec);
@@ -34,6 +36,7 @@ export function createAdaptiveKernel(spec: AdaptiveSpec, choice?: KernelChoice):
  * kernel fed the same reference, lets a frequency-domain clean path reuse its input transforms.
  */
 export function createFirKernel(spec: AdaptiveSpec, choice?: KernelChoice, partner?: AdaptiveKernel): FirKernel {
+  if ((spec.references ?? 1) > 1) return new MultiFloatFirKernel(spec);
   if (spec.algorithm === 'pbfdaf') {
     return new FdafFirKernel(spec, fdafOptions(spec), partner instanceof FdafAdaptiveKernel ? partner : undefined);
   }

@@ -31,6 +31,11 @@ export interface AdaptiveSpec {
   readonly blockSize?: number;
   /** pbfdaf: apply the gradient constraint. */
   readonly constrained?: boolean;
+  /**
+   * K: references the filter has (default 1), one `taps`-long filter each (multiKernel.ts): the
+   * samples come interleaved, x[n K + k], and the weights hold K x taps values.
+   */
+  readonly references?: number;
 }
 
 export interface WeightStats {
@@ -44,7 +49,8 @@ export interface WeightStats {
 
 /**
  * One adaptive transversal filter. Tap k multiplies x[n-k]. `run` processes samples
- * [start, end) of the given arrays, allocates nothing and never throws.
+ * [start, end) of the given arrays, allocates nothing and never throws. With K references
+ * (spec.references), x and noise hold K values per sample, interleaved.
  */
 export interface AdaptiveKernel {
   readonly spec: AdaptiveSpec;

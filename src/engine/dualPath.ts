@@ -88,9 +88,13 @@ export class DualPathEngine {
   private readonly fading: FirKernel;
   private readonly noiseGen: GaussianNoise | null;
   private readonly noiseSigma: number;
-  private readonly x = new Float64Array(CHUNK);
+  /** References (K per sample, interleaved), desired, injected noise (K per sample). */
+  private readonly K: number;
+  private readonly x: Float64Array;
   private readonly d = new Float64Array(CHUNK);
-  private readonly noise = new Float64Array(CHUNK);
+  private readonly noise: Float64Array;
+  /** A lone reference array as the list the chunk loop reads (no array per call). */
+  private readonly lone: Float64Array[] = [new Float64Array(0)];
   private readonly yA = new Float64Array(CHUNK);
   private readonly eA = new Float64Array(CHUNK);
   private readonly yC = new Float64Array(CHUNK);
@@ -129,6 +133,9 @@ export class DualPathEngine {
   ) {
     this.current = settings;
     const { sampleRate, filter, supervisor } = settings;
+    this.K = filter.references ?? 1;
+    this.x = new Float64Array(CHUNK * this.K);
+    this.noise = new Float64Array(CHUNK * this.K);
     this.windowLength = Math.max(1, Math.round(supervisor.windowSeconds * sampleRate));
     this.crossfadeLength = Math.max(0, Math.round(supervisor.crossfadeSeconds * sampleRate));
     this.adaptive = createAdaptiveKernel(filter);
@@ -136,7 +143,7 @@ export class DualPathEngine {
     this.fading = createFirKernel(filter, undefined, this.adaptive);
     this.noiseGen = filter.noiseInjectionDb === null ? null : new GaussianNoise(filter.noiseSeed);
     this.noiseSigma = filter.noiseInjectionDb === null ? 0 : sigmaOfDb(filter.noiseInjectionDb);
-    this.cleanSnapshot = { version: 0, weights: new Float64Array(filter.taps), sample: 0, reason: 'restored' };
+    this.cleanSnapshot = { version: 0, weights: new Float64Array(filter.taps * this.K), sample: 0, reason: 'restored' };
   }
 
   /** Samples per supervisor window, and per crossfade, under the settings in effect. */
@@ -220,14 +227,21 @@ export class DualPathEngine {
 
   /**
    * Processes n samples of reference and desired; writes the clean path's and the adaptive
-   * path's output streams. Non-finite inputs are counted and replaced by zero; finite inputs
+   * path's output streams. With several references (filter.references), `ref` is one array per
+   * reference, in order. Non-finite inputs are counted and replaced by zero; finite inputs
    * beyond +-INPUT_LIMIT are counted and clamped to it.
    */
-  process(ref: Float64Array, des: Float64Array, cleanOut: Float64Array, adaptiveOut: Float64Array, n: number): void {
+  process(ref: Float64Array | readonly Float64Array[], des: Float64Array, cleanOut: Float64Array, adaptiveOut: Float64Array, n: number): void {
+    let refs: readonly Float64Array[];
+    if (ref instanceof Float64Array) {
+      this.lone[0] = ref;
+      refs = this.lone;
+    } else refs = ref;
+    if (refs.length !== this.K) throw new Error(`the engine takes ${this.K} reference(s), got ${refs.length}`);
     let i = 0;
     while (i < n) {
       const m = Math.min(n - i, CHUNK, this.windowSamples - this.inWindow);
-      this.processChunk(ref, des, cleanOut, adaptiveOut, i, m);
+      this.processChunk(refs, des, cleanOut, adaptiveOut, i, m);
       i += m;
       this.inWindow += m;
       this.sample += m;
@@ -236,29 +250,35 @@ export class DualPathEngine {
   }
 
   private processChunk(
-    ref: Float64Array,
+    refs: readonly Float64Array[],
     des: Float64Array,
     cleanOut: Float64Array,
     adaptiveOut: Float64Array,
     offset: number,
     m: number,
   ): void {
-    const { x, d, noise, yA, eA, yC, eC } = this;
+    const { x, d, noise, yA, eA, yC, eC, K } = this;
     let bad = 0;
     let over = 0;
-    for (let j = 0; j < m; j++) {
-      let xv = ref[offset + j]!;
-      let dv = des[offset + j]!;
-      // Compare, do not call: NaN fails both tests and +-Infinity passes the second.
-      if (!(xv <= INPUT_LIMIT && xv >= -INPUT_LIMIT)) {
-        if (xv !== xv || xv === Infinity || xv === -Infinity) {
-          xv = 0;
-          bad++;
-        } else {
-          xv = xv > 0 ? INPUT_LIMIT : -INPUT_LIMIT;
-          over++;
+    for (let k = 0; k < K; k++) {
+      const ref = refs[k]!;
+      for (let j = 0; j < m; j++) {
+        let xv = ref[offset + j]!;
+        // Compare, do not call: NaN fails both tests and +-Infinity passes the second.
+        if (!(xv <= INPUT_LIMIT && xv >= -INPUT_LIMIT)) {
+          if (xv !== xv || xv === Infinity || xv === -Infinity) {
+            xv = 0;
+            bad++;
+          } else {
+            xv = xv > 0 ? INPUT_LIMIT : -INPUT_LIMIT;
+            over++;
+          }
         }
+        x[j * K + k] = xv;
       }
+    }
+    for (let j = 0; j < m; j++) {
+      let dv = des[offset + j]!;
       if (!(dv <= INPUT_LIMIT && dv >= -INPUT_LIMIT)) {
         if (dv !== dv || dv === Infinity || dv === -Infinity) {
           dv = 0;
@@ -268,14 +288,13 @@ export class DualPathEngine {
           over++;
         }
       }
-      x[j] = xv;
       d[j] = dv;
     }
     this.nonFiniteWindow += bad;
     this.nonFiniteSamples += bad;
     this.outOfRangeWindow += over;
     this.outOfRangeSamples += over;
-    if (this.noiseGen !== null) this.noiseGen.fill(noise, this.noiseSigma, 0, m);
+    if (this.noiseGen !== null) this.noiseGen.fill(noise, this.noiseSigma, 0, m * K);
 
     this.adaptive.run(x, d, this.noiseGen === null ? null : noise, yA, eA, 0, m);
     this.clean.run(x, d, yC, eC, 0, m);
@@ -288,8 +307,9 @@ export class DualPathEngine {
     let sd = this.sumD;
     let sa = this.sumEA;
     let sc = this.sumEC;
+    // The references' power together (sample by sample, reference by reference).
+    for (let i = 0; i < m * K; i++) sx += x[i]! * x[i]!;
     for (let j = 0; j < m; j++) {
-      sx += x[j]! * x[j]!;
       sd += d[j]! * d[j]!;
       sa += eA[j]! * eA[j]!;
       sc += eC[j]! * eC[j]!;

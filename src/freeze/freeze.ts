@@ -1,7 +1,7 @@
 import { createHash } from 'node:crypto';
 import { readFileSync, writeFileSync } from 'node:fs';
 import { join } from 'node:path';
-import { measurementChannels, type Config } from '../config/schema.js';
+import { measurementChannels, referenceChannels, type Config } from '../config/schema.js';
 import { fixedConstants, formatOf } from '../dsp/fixedKernel.js';
 import { float32Constants } from '../dsp/float32Kernel.js';
 import { saturate, scaleRound } from '../dsp/fixed.js';
@@ -48,6 +48,9 @@ export function checkPortable(config: Config, file: string): void {
   }
   if (f.noiseInjectionDb !== null) {
     refuse('filter.noiseInjectionDb is set: the injected noise comes from a floating-point generator the port cannot reproduce bit for bit; allowed: null (inject noise in the firmware, ahead of tw_filter_step)');
+  }
+  if (config.input.referenceChannels !== null && config.input.referenceChannels.length > 1) {
+    refuse(`input.referenceChannels = ${JSON.stringify(config.input.referenceChannels)}: the C port filters one reference; allowed: one reference channel`);
   }
   if (config.input.desiredChannels !== null && config.input.desiredChannels.length > 1) {
     refuse(`input.desiredChannels = ${JSON.stringify(config.input.desiredChannels)}: a frozen filter is one channel's; allowed: one measurement channel (input.desiredChannel N, or desiredChannels [N])`);
@@ -124,7 +127,7 @@ function makeVectors(spec: AdaptiveSpec, cfg: Config, file: string, seconds: num
     const n = Math.min(reader.frames, Math.max(1, Math.round(seconds * reader.format.sampleRate)));
     const x = new Float64Array(n);
     const d = new Float64Array(n);
-    reader.read([cfg.input.referenceChannel, measurementChannels(cfg)[0]!], [x, d]);
+    reader.read([referenceChannels(cfg)[0]!, measurementChannels(cfg)[0]!], [x, d]);
     const fmt = formatOf(spec.arithmetic);
     const scale = fmt === null ? 1 : 2 ** -fmt.fracBits;
     let inputClips = 0;

@@ -8,7 +8,7 @@
  *     16-bit interleaved frames go out on fd 4; {"t":"up"} / {"t":"error","message"} /
  *     {"t":"overrun","bytes"} on the IPC channel (fd 3).
  *   node audioChild.js playback '{"device":..., "sampleRate":48000, "maxQueueBytes":...}'
- *     16-bit mono frames come in on stdin; {"t":"underrun"} / {"t":"dropped"} / {"t":"error"} on IPC.
+ *     16-bit mono frames come in on stdin; {"t":"underrun"} / {"t":"dropped","blocks":N} / {"t":"error"} on IPC.
  */
 import { createReadStream, createWriteStream } from 'node:fs';
 import { oneLine } from '../errors.js';
@@ -27,6 +27,8 @@ interface PlaybackOptions {
   device: string | number | null;
   sampleRate: number;
   maxQueueBytes: number;
+  /** Bytes of one block the parent writes (a read may hold several: the pipe joins them). */
+  blockBytes: number;
 }
 
 const send = (m: object): void => {
@@ -69,7 +71,7 @@ function playback(o: PlaybackOptions): void {
     const b = chunk as Buffer;
     // The device drained everything queued before this block came: an underrun.
     if (blocks > 4 && stream.queuedBytes === 0) send({ t: 'underrun' });
-    if (stream.queuedBytes + b.length > o.maxQueueBytes) send({ t: 'dropped' });
+    if (stream.queuedBytes + b.length > o.maxQueueBytes) send({ t: 'dropped', blocks: Math.max(1, Math.round(b.length / o.blockBytes)) });
     else stream.write(b);
     blocks++;
   }).on('end', () => process.exit(0));

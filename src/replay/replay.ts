@@ -1,7 +1,7 @@
 import { renameSync, writeFileSync } from 'node:fs';
 import { join } from 'node:path';
 import { WelchCross, bandBounds, spectrumSegment } from '../analysis/welch.js';
-import { measurementChannels, type Config } from '../config/schema.js';
+import { measurementChannels, referenceChannels, type Config } from '../config/schema.js';
 import { weightLimitOf } from '../dsp/kernels.js';
 import { INPUT_LIMIT } from '../dsp/level.js';
 import { engineSettingsOf } from '../engine/settings.js';
@@ -116,7 +116,7 @@ export function replay(opts: ReplayOptions): ReplayResult {
     const admitted: Policy[] = [];
     for (const p of policies) {
       if (p.config.filter.algorithm === 'lms') {
-        scan ??= scanReference(reader, first.config.input.referenceChannel, range);
+        scan ??= scanReference(reader, referenceChannels(first.config)[0]!, range);
         try {
           for (const message of checkLmsStep(scan, p.config, p.configFile, rate)) warnings.push({ code: 'TW_WARN_STEP', message: `${p.name}: ${message}` });
         } catch (err) {
@@ -132,7 +132,9 @@ export function replay(opts: ReplayOptions): ReplayResult {
     const readsBefore = reader.reads;
     const block = opts.blockFrames ?? 4096;
     const measured = measurementChannels(first.config);
-    const ref = new Float64Array(block);
+    const refChannels = referenceChannels(first.config);
+    const refs = refChannels.map(() => new Float64Array(block));
+    const ref = refs[0]!;
     const des = measured.map(() => new Float64Array(block));
     const segment = spectrumSegment(rate);
     // Spectra from segments that do not overlap (every second of Welch's half-overlapping ones):
@@ -178,10 +180,10 @@ export function replay(opts: ReplayOptions): ReplayResult {
       if (opts.resume) resumeRun(run, opts.resume.file, opts.resume.capture);
       return { p, dir, channel, ci, run, summary, log, wavs, bands, engineNs: 0n };
     }));
-    const channels = [first.config.input.referenceChannel, ...measured];
+    const channels = [...refChannels, ...measured];
     let done = 0;
     while (done < total) {
-      const n = reader.read(channels, [ref.subarray(0, Math.min(block, total - done)), ...des]);
+      const n = reader.read(channels, [ref.subarray(0, Math.min(block, total - done)), ...refs.slice(1), ...des]);
       if (n === 0) break;
       for (let c = 0; c < crosses.length; c++) crosses[c]!.push(ref, des[c]!, n);
       if (truthReader !== null) {
@@ -190,7 +192,7 @@ export function replay(opts: ReplayOptions): ReplayResult {
       }
       for (const r of runs) {
         const t0 = process.hrtime.bigint();
-        r.run.process(ref, des[r.ci]!, n);
+        r.run.process(refs, des[r.ci]!, n);
         r.engineNs += process.hrtime.bigint() - t0;
       }
       done += n;

@@ -17,7 +17,8 @@ export const STEP_SCAN_SECONDS = 10;
 /** Throws TW_ERR_WAV_CHANNEL unless every configured channel exists. */
 export function checkChannels(channels: number, config: Config, file: string): void {
   const { input } = config;
-  const wanted: [string, number][] = [['input.referenceChannel', input.referenceChannel]];
+  const wanted: [string, number][] =
+    input.referenceChannels === null ? [['input.referenceChannel', input.referenceChannel]] : input.referenceChannels.map((c, i) => [`input.referenceChannels[${i}]`, c]);
   if (input.desiredChannels === null) wanted.push(['input.desiredChannel', input.desiredChannel]);
   else input.desiredChannels.forEach((c, i) => wanted.push([`input.desiredChannels[${i}]`, c]));
   for (const [key, value] of wanted) {

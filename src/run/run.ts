@@ -58,7 +58,7 @@ export class Run {
     maxBlockFrames = 4096,
   ) {
     this.sink = fanOut(sinks);
-    const taps = settings.filter.taps;
+    const taps = settings.filter.taps * (settings.filter.references ?? 1);
     this.weights = new Float64Array(taps);
     this.weightLimit = weightLimitOf(settings.filter);
     this.forecaster = new DriftForecaster(taps, settings.supervisor.windowSeconds);
@@ -96,8 +96,8 @@ export class Run {
     this.sink.onEvent({ type: 'settings', channel: this.channel, sample, timeSeconds: this.seconds(sample), changes }, null);
   }
 
-  /** Processes n frames of reference and desired (n may exceed the block size given at construction). */
-  process(ref: Float64Array, des: Float64Array, n: number): void {
+  /** Processes n frames of reference(s) and desired (n may exceed the block size given at construction). */
+  process(ref: Float64Array | readonly Float64Array[], des: Float64Array, n: number): void {
     if (n > this.cleanOut.length) {
       this.cleanOut = new Float64Array(n);
       this.adaptiveOut = new Float64Array(n);

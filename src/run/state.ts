@@ -13,7 +13,7 @@ import { deflateRawSync, inflateRawSync } from 'node:zlib';
  */
 
 /** Fields that are configuration, wiring or per-call scratch, not state: rebuilt from the settings. */
-const SKIP = new Set(['spec', 'listener', 'sink', 'current', 'pendingSettings', 'opts', 'settings', 'cleanOut', 'adaptiveOut']);
+const SKIP = new Set(['spec', 'listener', 'sink', 'current', 'pendingSettings', 'opts', 'settings', 'cleanOut', 'adaptiveOut', 'lone']);
 
 type Scalar = number | boolean | string | bigint | null;
 

@@ -1,4 +1,4 @@
-import { measurementChannels, type CaptureCause, type Config } from '../config/schema.js';
+import { measurementChannels, referenceChannels, type CaptureCause, type Config } from '../config/schema.js';
 import type { EngineSettings } from '../engine/dualPath.js';
 import type { CaptureCauseRecord } from '../run/capture.js';
 import type { DecisionRecord } from '../run/record.js';
@@ -59,7 +59,7 @@ export class CaptureRecorder {
     this.keyframeEvery = Math.max(config.stream.blockFrames, Math.round(this.before / 4));
     // Enough for the oldest keyframe a cause may pick, the episode after it, and a block of slack.
     this.size = this.before + 2 * this.keyframeEvery + this.after + 2 * config.stream.blockFrames;
-    this.used = [config.input.referenceChannel, ...measurementChannels(config)];
+    this.used = [...referenceChannels(config), ...measurementChannels(config)];
     const width = Math.max(...this.used) + 1;
     this.rings = Array.from({ length: width }, (_, ch) => (this.used.includes(ch) ? new Float64Array(this.size) : null));
   }
@@ -86,10 +86,10 @@ export class CaptureRecorder {
   }
 
   /** After the block: its input into the rings, and an episode that is complete goes out. */
-  afterBlock(ref: Float64Array, des: readonly Float64Array[], n: number): void {
+  afterBlock(refs: readonly Float64Array[], des: readonly Float64Array[], n: number): void {
     const at = this.now;
     const { size } = this;
-    const cols = [ref, ...des];
+    const cols = [...refs, ...des];
     for (let c = 0; c < this.used.length; c++) {
       const ring = this.rings[this.used[c]!]!;
       const src = cols[c]!;

@@ -34,7 +34,9 @@ export class CaptureWriter {
     const w = new WavWriter(wav, this.sampleRate, e.channels.length, 'float64');
     w.write(e.channels, e.frames);
     w.close();
-    const config: Config = { ...this.config, filter: { ...this.config.filter, ...e.settings.filter }, supervisor: { ...this.config.supervisor, ...e.settings.supervisor } };
+    // The live settings in effect, on the config's own keys (the engine's view has a few more).
+    const pick = <T extends object>(keys: T, from: object): T => Object.fromEntries(Object.keys(keys).map((k) => [k, (from as Record<string, unknown>)[k]])) as T;
+    const config: Config = { ...this.config, filter: pick(this.config.filter, e.settings.filter), supervisor: pick(this.config.supervisor, e.settings.supervisor) };
     const side: CaptureFile = {
       format: CAPTURE_FORMAT,
       tool: `tapwarden ${VERSION}`,

@@ -92,7 +92,9 @@ export function readSnapshot(file: string): { snapshot: Snapshot } | { problem: 
 export function incompatibility(s: Snapshot, settings: EngineSettings): string | null {
   const f = settings.filter;
   const diffs: string[] = [];
-  if (s.taps !== f.taps || s.weights.length !== f.taps) diffs.push(`taps ${s.taps} vs ${f.taps}`);
+  const weights = f.taps * (f.references ?? 1);
+  if (s.taps !== f.taps) diffs.push(`taps ${s.taps} vs ${f.taps}`);
+  else if (s.weights.length !== weights) diffs.push(`${s.weights.length} weights vs ${weights} (${f.references ?? 1} reference(s) of ${f.taps} taps)`);
   if (s.arithmetic !== f.arithmetic) diffs.push(`arithmetic ${s.arithmetic} vs ${f.arithmetic}`);
   if (s.algorithm !== f.algorithm) diffs.push(`algorithm ${s.algorithm} vs ${f.algorithm}`);
   if (s.sampleRate !== settings.sampleRate) diffs.push(`sample rate ${s.sampleRate} vs ${settings.sampleRate} Hz`);

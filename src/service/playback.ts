@@ -30,14 +30,14 @@ export class Playback implements RunSink {
   ) {
     this.full = 10 ** (config.stream.device.playbackPeakDb / 20) * 32767;
     this.maxQueueBytes = PLAYBACK_QUEUE_BLOCKS * config.stream.blockFrames * 2;
-    const options = { device: config.stream.device.playback, sampleRate, maxQueueBytes: this.maxQueueBytes };
+    const options = { device: config.stream.device.playback, sampleRate, maxQueueBytes: this.maxQueueBytes, blockBytes: 2 * config.stream.blockFrames };
     const child = fork(AUDIO_CHILD, ['playback', JSON.stringify(options)], { stdio: ['pipe', 2, 2, 'ipc'], serialization: 'json' });
     this.child = child;
     this.stdin = child.stdin!;
     this.stdin.on('error', () => {});
-    child.on('message', (m: { t: string; message?: string }) => {
+    child.on('message', (m: { t: string; message?: string; blocks?: number }) => {
       if (m.t === 'underrun') telemetry.add('playbackUnderruns', 1);
-      else if (m.t === 'dropped') telemetry.add('playbackDroppedBlocks', 1);
+      else if (m.t === 'dropped') telemetry.add('playbackDroppedBlocks', m.blocks ?? 1);
       else if (m.t === 'error') onProblem(m.message ?? 'playback failed');
     });
     child.on('exit', (code) => {

@@ -1,6 +1,6 @@
 import { readFileSync } from 'node:fs';
 import { pino, type Logger } from 'pino';
-import { measurementChannels, type Config } from '../config/schema.js';
+import { measurementChannels, referenceChannels, type Config } from '../config/schema.js';
 import { cachedDemo } from '../demo/write.js';
 import { weightLimitOf } from '../dsp/kernels.js';
 import { engineSettingsOf } from '../engine/settings.js';
@@ -81,7 +81,7 @@ function prepareSource(
     for (const w of reader.warnings) warn(w);
     const rate = reader.format.sampleRate;
     // Kept for live settings: a new LMS step is checked against the same reference.
-    const scan = config.filter.algorithm === 'lms' ? scanReference(reader, config.input.referenceChannel, { from: 0, to: reader.frames }) : null;
+    const scan = config.filter.algorithm === 'lms' ? scanReference(reader, referenceChannels(config)[0]!, { from: 0, to: reader.frames }) : null;
     if (scan !== null) for (const w of checkLmsStep(scan, config, configFile, rate)) warn(w);
     return { file, sampleRate: rate, description: `file ${file} (${stream.pace}${stream.loop ? ', looped' : ''})`, scan };
   } finally {

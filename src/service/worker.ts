@@ -50,13 +50,13 @@ const exitAfter = /^engine-exit:(\d+)$/.exec(process.env['TAPWARDEN_FAULT'] ?? '
 let blocksSeen = 0;
 
 const callbacks: SourceCallbacks = {
-  block(ref, des, n) {
+  block(refs, des, n) {
     if (exitAfter !== undefined && ++blocksSeen > Number(exitAfter)) process.exit(70);
     recorder?.beforeBlock(first.samples);
     const t0 = process.hrtime.bigint();
-    for (let c = 0; c < runs.length; c++) runs[c]!.process(ref, des[c]!, n);
+    for (let c = 0; c < runs.length; c++) runs[c]!.process(refs, des[c]!, n);
     telemetry.observeBlock(Number(process.hrtime.bigint() - t0) / 1e9);
-    recorder?.afterBlock(ref, des, n);
+    recorder?.afterBlock(refs, des, n);
     telemetry.add('samples', n);
     telemetry.add('blocks', 1);
     for (let c = 0; c < runs.length; c++) {

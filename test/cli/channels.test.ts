@@ -62,7 +62,7 @@ describe('several measurement channels (input.desiredChannels)', () => {
     writeFileSync(join(dir, 'far.yaml'), 'input:\n  desiredChannels: [1, 5]\n');
     const b = cli(['replay', rec, '--config', join(dir, 'far.yaml'), '--out', join(dir, 'y')]);
     expect(b.status).toBe(3);
-    expect(b.stderr.trim()).toMatch(/has 3 channel\(s\) \(0\.\.2\) but input\.desiredChannels\[1\] = 5 \[TW_ERR_WAV_CHANNEL\]$/);
+    expect(b.stderr.trim()).toMatch(/has 4 channel\(s\) \(0\.\.3\) but input\.desiredChannels\[1\] = 5 \[TW_ERR_WAV_CHANNEL\]$/);
     writeFileSync(join(dir, 'dup.yaml'), 'input:\n  desiredChannels: [1, 1]\n');
     expect(cli(['replay', rec, '--config', join(dir, 'dup.yaml'), '--out', join(dir, 'z')]).stderr).toMatch(/input\.desiredChannels = \[1,1\] is not allowed/);
     writeFileSync(join(dir, 'q15-two.yaml'), 'input:\n  desiredChannels: [1, 2]\nfilter:\n  algorithm: lms\n  step: 0.05\n  arithmetic: q15\n  leakShift: 14\n');

@@ -51,7 +51,7 @@ describe('captured episodes', () => {
     expect(side.configHash).toBe(createHash('sha256').update(JSON.stringify(side.config)).digest('hex'));
     expect(side.runs.map((r: { channel: number }) => r.channel)).toEqual([1, 2]);
     // SoX reads the WAV: 64-bit float, the three input channels, the frames the side file says.
-    expect(sox('--i', '-c', wav).trim()).toBe('3');
+    expect(sox('--i', '-c', wav).trim()).toBe('3'); // channels 0..2 (the pump's, 3, is no run's here)
     expect(sox('--i', '-b', wav).trim()).toBe('64');
     expect(sox('--i', '-s', wav).trim()).toBe(String(side.frames));
     // A cause is preceded by at least secondsBefore of input (less only at the stream's start).

@@ -5,8 +5,9 @@ import WebSocket from 'ws';
 import { serveWith, stopAll, until } from '../helpers/serve.js';
 import { cli, sox, tmpDir } from '../helpers/tools.js';
 
-// serve with the demo's two measurement channels (input.desiredChannels [1, 2]), driven by real
-// HTTP and WebSocket clients. Every check is a count or a reply, none a time.
+// serve with the demo's two measurement channels (input.desiredChannels [1, 2]), on the demo's
+// two references in the first test (rig.yaml), driven by real HTTP and WebSocket clients. Every
+// check is a count or a reply, none a time.
 
 const TOKEN = 'bench-7-control-token-0123456789';
 
@@ -20,13 +21,13 @@ describe('serve with several measurement channels', () => {
     const weights = join(dir, 'weights.json');
     const s = await serveWith(
       dir,
-      `input:\n  desiredChannels: [1, 2]\nstream:\n  file: ${rec}\n  pace: free\n  loop: false\npersistence:\n  file: ${weights}\n  minIntervalSeconds: 0\n`,
+      `input:\n  referenceChannels: [0, 3]\n  desiredChannels: [1, 2]\nstream:\n  file: ${rec}\n  pace: free\n  loop: false\npersistence:\n  file: ${weights}\n  minIntervalSeconds: 0\n`,
       { TAPWARDEN_CONTROL_TOKEN: TOKEN },
     );
     try {
       await s.logged((l) => String(l['msg']).startsWith('the stream ended'));
       // The same run offline (replay writes DIR/ch1 and DIR/ch2).
-      const r = cli(['replay', rec, '--config', join(dir, 'two-channels.yaml'), '--out', join(dir, 'replay')]);
+      const r = cli(['replay', rec, '--config', join(dir, 'rig.yaml'), '--out', join(dir, 'replay')]);
       expect(r.status, r.stderr).toBe(0);
       for (const ch of [1, 2]) {
         const summary = JSON.parse(readFileSync(join(dir, 'replay', `ch${ch}`, 'summary.json'), 'utf8'));
@@ -65,12 +66,12 @@ describe('serve with several measurement channels', () => {
     } finally {
       await s.stop();
     }
-    // One snapshot per channel, each holding that channel's clean weights.
+    // One snapshot per channel, each holding that channel's clean weights: two references' 64 taps.
     for (const ch of [1, 2]) {
       const file = join(dir, `weights.ch${ch}.json`);
       expect(existsSync(file)).toBe(true);
       const snap = JSON.parse(readFileSync(file, 'utf8')) as { weights: number[] };
-      expect(snap.weights.length).toBe(64);
+      expect(snap.weights.length).toBe(128);
     }
     expect(existsSync(weights)).toBe(false);
   });

@@ -5,7 +5,7 @@ import { analyzeExcitation, type ExcitationAnalysis } from '../../analysis/excit
 import { DbHistogram } from '../../analysis/histogram.js';
 import { WelchCross, WelchPsd, bandBounds, spectrumSegment } from '../../analysis/welch.js';
 import { DEFAULT_CONFIG_PATH, loadConfig } from '../../config/load.js';
-import { measurementChannels } from '../../config/schema.js';
+import { measurementChannels, referenceChannels } from '../../config/schema.js';
 import { INPUT_LIMIT, powerDb } from '../../dsp/level.js';
 import { TapwardenError, oneLine, quote, warningLine } from '../../errors.js';
 import { makeDirectory } from '../../io/files.js';
@@ -195,8 +195,8 @@ function select(recording: string, config: ReturnType<typeof loadConfig>, taps: 
     const psd = new WelchPsd(spectrumSegment(rate), rate);
     const x = new Float64Array(win);
     const d = new Float64Array(win);
-    // With several measurement channels, the first is analyzed (README "analyze").
-    const channels = [config.input.referenceChannel, measurementChannels(config)[0]!];
+    // With several references or measurement channels, the first of each is analyzed (README "analyze").
+    const channels = [referenceChannels(config)[0]!, measurementChannels(config)[0]!];
     const median = new DbHistogram();
     let referenceEnergy = 0;
     reader.seek(range.from);
@@ -218,7 +218,7 @@ function select(recording: string, config: ReturnType<typeof loadConfig>, taps: 
     if (referenceEnergy === 0) {
       throw new TapwardenError('TW_ERR_REFERENCE_SILENT', {
         file: recording,
-        channel: config.input.referenceChannel,
+        channel: referenceChannels(config)[0]!,
         from: (range.from / rate).toFixed(1),
         to: (range.to / rate).toFixed(1),
       });

@@ -1,6 +1,6 @@
 import { fork, type ChildProcess } from 'node:child_process';
 import type { Readable } from 'node:stream';
-import { measurementChannels, type Config } from '../../config/schema.js';
+import { measurementChannels, referenceChannels, type Config } from '../../config/schema.js';
 import type { Telemetry } from '../telemetry.js';
 import type { SourceCallbacks, StreamSource } from './source.js';
 
@@ -17,10 +17,10 @@ export const AUDIO_CHILD = new URL('../../io/audioChild.js', import.meta.url);
  */
 export class DeviceSource implements StreamSource {
   private child: ChildProcess | null = null;
-  private readonly ref: Float64Array;
+  private readonly refs: Float64Array[];
   private readonly des: Float64Array[];
-  /** Byte offsets in a frame of the reference and of each measurement channel. */
-  private readonly refAt: number;
+  /** Byte offsets in a frame of each reference and each measurement channel. */
+  private readonly refAt: number[];
   private readonly desAt: number[];
   private fill = 0;
   /** A frame split across two pipe reads. */
@@ -35,9 +35,9 @@ export class DeviceSource implements StreamSource {
     private readonly telemetry: Telemetry,
     private readonly cb: SourceCallbacks,
   ) {
-    this.ref = new Float64Array(config.stream.blockFrames);
+    this.refs = referenceChannels(config).map(() => new Float64Array(config.stream.blockFrames));
     this.des = measurementChannels(config).map(() => new Float64Array(config.stream.blockFrames));
-    this.refAt = 2 * config.input.referenceChannel;
+    this.refAt = referenceChannels(config).map((c) => 2 * c);
     this.desAt = measurementChannels(config).map((c) => 2 * c);
     telemetry.set('queueCapacity', config.stream.queueBlocks);
   }
@@ -106,15 +106,15 @@ export class DeviceSource implements StreamSource {
     this.lastData = Date.now();
     const b = this.carry.length > 0 ? Buffer.concat([this.carry, chunk]) : chunk;
     const frames = Math.floor(b.length / frameBytes);
-    const { refAt, desAt, des } = this;
-    const n = this.ref.length;
+    const { refAt, desAt, refs, des } = this;
+    const n = refs[0]!.length;
     for (let i = 0; i < frames; i++) {
       const at = i * frameBytes;
-      this.ref[this.fill] = b.readInt16LE(at + refAt) / 32768;
+      for (let c = 0; c < refs.length; c++) refs[c]![this.fill] = b.readInt16LE(at + refAt[c]!) / 32768;
       for (let c = 0; c < des.length; c++) des[c]![this.fill] = b.readInt16LE(at + desAt[c]!) / 32768;
       if (++this.fill === n) {
         this.fill = 0;
-        this.cb.block(this.ref, this.des, n);
+        this.cb.block(this.refs, this.des, n);
       }
     }
     this.carry = b.subarray(frames * frameBytes);

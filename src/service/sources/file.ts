@@ -1,4 +1,4 @@
-import { measurementChannels, type Config } from '../../config/schema.js';
+import { measurementChannels, referenceChannels, type Config } from '../../config/schema.js';
 import { WavReader } from '../../io/wav/reader.js';
 import type { Telemetry } from '../telemetry.js';
 import type { SourceCallbacks, StreamSource } from './source.js';
@@ -16,8 +16,10 @@ export class FileSource implements StreamSource {
   private readonly reader: WavReader;
   private readonly channels: number[];
   private readonly blockFrames: number;
-  private readonly ref: Float64Array;
+  private readonly refs: Float64Array[];
   private readonly des: Float64Array[];
+  /** The references' and measurements' arrays in read order. */
+  private readonly all: Float64Array[];
   private timer: NodeJS.Timeout | NodeJS.Immediate | null = null;
   private startedAt = 0n;
   /** Frames handed over or dropped since start (the stream position). */
@@ -32,10 +34,11 @@ export class FileSource implements StreamSource {
   ) {
     this.reader = WavReader.open(file);
     const measured = measurementChannels(config);
-    this.channels = [config.input.referenceChannel, ...measured];
+    this.channels = [...referenceChannels(config), ...measured];
     this.blockFrames = config.stream.blockFrames;
-    this.ref = new Float64Array(this.blockFrames);
+    this.refs = referenceChannels(config).map(() => new Float64Array(this.blockFrames));
     this.des = measured.map(() => new Float64Array(this.blockFrames));
+    this.all = [...this.refs, ...this.des];
     telemetry.set('queueCapacity', config.stream.queueBlocks);
   }
 
@@ -103,14 +106,15 @@ export class FileSource implements StreamSource {
   /** Reads and hands over one block; false when the file ended for good. */
   private emitBlock(): boolean {
     const n = this.blockFrames;
-    let got = this.reader.read(this.channels, [this.ref, ...this.des]);
+    const all = this.all;
+    let got = this.reader.read(this.channels, all);
     while (got < n && this.config.stream.loop && this.reader.frames > 0) {
       this.reader.seek(0);
       const from = got;
-      got += this.reader.read(this.channels, [this.ref.subarray(from), ...this.des.map((d) => d.subarray(from))]);
+      got += this.reader.read(this.channels, all.map((a) => a.subarray(from)));
     }
     this.emitted += n;
-    if (got > 0) this.cb.block(this.ref, this.des, got);
+    if (got > 0) this.cb.block(this.refs, this.des, got);
     if (got < n) {
       this.stop();
       this.cb.state(false, 'the recording ended');

@@ -4,8 +4,8 @@
  * of a file are reported through the callbacks.
  */
 export interface SourceCallbacks {
-  /** n frames of reference and of each measurement channel, in configured order (arrays reused after the call). */
-  block(ref: Float64Array, des: readonly Float64Array[], n: number): void;
+  /** n frames of each reference and each measurement channel, in configured order (arrays reused after the call). */
+  block(refs: readonly Float64Array[], des: readonly Float64Array[], n: number): void;
   state(up: boolean, reason: string): void;
   /** The source ended for good (a file without loop). */
   ended(): void;
