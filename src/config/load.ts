@@ -120,6 +120,10 @@ function crossChecks(c: Config): string | null {
   } else if (refs.includes(input.desiredChannel)) {
     return `input.desiredChannel = ${input.desiredChannel} is not allowed; allowed: a channel other than ${refKey} (${refs.join(', ')})`;
   }
+  const measured = input.desiredChannels?.length ?? 1;
+  if (c.stream.workers > measured) {
+    return `stream.workers = ${c.stream.workers} is not allowed; allowed: 1 to ${measured} (the measurement channels to spread over them)`;
+  }
   if (refs.length > 1 && (filter.algorithm !== 'nlms' || filter.arithmetic !== 'float64')) {
     const key = filter.algorithm !== 'nlms' ? 'algorithm' : 'arithmetic';
     return `filter.${key} = ${quote(filter[key])} is not allowed with several references (input.referenceChannels ${quote(refs)}); allowed: algorithm nlms in float64 (the multiple-input filter; LMS's step bound would need the references' joint correlation)`;

@@ -30,6 +30,8 @@ export interface Config {
     readonly loop: boolean;
     readonly blockFrames: number;
     readonly queueBlocks: number;
+    /** Engine threads the measurement channels are spread over (serve). */
+    readonly workers: number;
     readonly device: {
       readonly input: string | number | null;
       readonly sampleRate: number;
@@ -93,6 +95,16 @@ export function measurementChannels(config: Pick<Config, 'input'>): readonly num
   return config.input.desiredChannels ?? [config.input.desiredChannel];
 }
 
+/**
+ * The measurement channels' groups, one per engine thread (stream.workers): contiguous and as
+ * even as they can be, as indices into measurementChannels; the first group's thread owns the input.
+ */
+export function channelGroups(config: Pick<Config, 'input' | 'stream'>): number[][] {
+  const m = measurementChannels(config).length;
+  const w = Math.min(config.stream.workers, m);
+  return Array.from({ length: w }, (_, g) => Array.from({ length: Math.floor(((g + 1) * m) / w) - Math.floor((g * m) / w) }, (_, i) => Math.floor((g * m) / w) + i));
+}
+
 /** The validator's options, shared by the build-time code generator (scripts/build-validator.mjs). */
 export const AJV_OPTIONS = { allErrors: false, strict: true, allowUnionTypes: true } as const;
 
@@ -144,6 +156,7 @@ export const configSchema = section({
     loop: { type: 'boolean' },
     blockFrames: int(16, 65536),
     queueBlocks: int(2, 4096),
+    workers: int(1, MAX_MEASUREMENT_CHANNELS),
     device: section({
       input: deviceRef,
       sampleRate: int(1000, 384000),

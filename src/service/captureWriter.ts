@@ -36,7 +36,15 @@ export class CaptureWriter {
     w.close();
     // The live settings in effect, on the config's own keys (the engine's view has a few more).
     const pick = <T extends object>(keys: T, from: object): T => Object.fromEntries(Object.keys(keys).map((k) => [k, (from as Record<string, unknown>)[k]])) as T;
-    const config: Config = { ...this.config, filter: pick(this.config.filter, e.settings.filter), supervisor: pick(this.config.supervisor, e.settings.supervisor) };
+    // The episode's own measurement channels (with stream.workers, each thread captures its group's).
+    const channels = e.runs.map((r) => r.channel);
+    const config: Config = {
+      ...this.config,
+      input: { ...this.config.input, desiredChannel: channels[0]!, desiredChannels: channels.length > 1 ? channels : null },
+      stream: { ...this.config.stream, workers: 1 },
+      filter: pick(this.config.filter, e.settings.filter),
+      supervisor: pick(this.config.supervisor, e.settings.supervisor),
+    };
     const side: CaptureFile = {
       format: CAPTURE_FORMAT,
       tool: `tapwarden ${VERSION}`,

@@ -2,7 +2,9 @@ import { Worker } from 'node:worker_threads';
 import type { Config } from '../config/schema.js';
 import { TapwardenError } from '../errors.js';
 import { fanOut, type RunSink } from '../run/run.js';
-import type { ControlOp, FromWorker, ToWorker, WeightsReply, WorkerInit } from './protocol.js';
+import { channelGroups, measurementChannels, referenceChannels } from '../config/schema.js';
+import { BlockRing } from './blockRing.js';
+import type { ControlOp, FromWorker, RingInit, ToWorker, WeightsReply, WorkerInit } from './protocol.js';
 import type { Episode } from './captureRecorder.js';
 import type { Telemetry } from './telemetry.js';
 
@@ -28,13 +30,18 @@ export interface HostCallbacks {
 }
 
 /**
- * The main thread's side of the engine worker. Records and events go to the sinks as they
- * arrive; requests (weights, control) are answered by id, and fail fast with
- * TW_ERR_ENGINE_FAILED once the worker is gone.
+ * The main thread's side of the engine threads (one per group of measurement channels,
+ * stream.workers; the first owns the input). Records and events go to the sinks as they arrive;
+ * requests (weights, control) go to the thread of the channel they name, or to every thread,
+ * are answered by id (the replies merged in channel order), and fail fast with
+ * TW_ERR_ENGINE_FAILED once any thread is gone.
  */
 export class EngineHost {
   failure: string | null = null;
-  private readonly worker: Worker;
+  private readonly workers: Worker[];
+  /** Per measurement channel, the thread that runs it. */
+  private readonly owner = new Map<number, number>();
+  private readonly order: readonly number[];
   private readonly sink: Required<RunSink>;
   private nextId = 1;
   private closing = false;
@@ -50,12 +57,22 @@ export class EngineHost {
     private readonly cb: HostCallbacks,
   ) {
     this.sink = fanOut(sinks);
-    const init: WorkerInit = { config, file, sampleRate, telemetry: this.telemetry.buffer };
-    this.worker = new Worker(new URL('./worker.js', import.meta.url), { workerData: init });
-    this.worker.on('message', (m: FromWorker) => this.receive(m));
-    this.worker.on('error', (err) => this.fail(`the engine worker failed: ${err.message}`));
-    this.worker.on('exit', (code) => {
-      if (!this.closing) this.fail(`the engine worker exited with code ${code}`);
+    const groups = channelGroups(config);
+    const measured = measurementChannels(config);
+    this.order = measured;
+    const columns = (g: number[]) => referenceChannels(config).length + g.length;
+    const frames = config.stream.blockFrames;
+    const rings: RingInit[] = groups.slice(1).map((group) => ({ ...BlockRing.create(config.stream.queueBlocks, columns(group), frames).shape(), group }));
+    this.workers = groups.map((group, g) => {
+      for (const i of group) this.owner.set(measured[i]!, g);
+      const init: WorkerInit = { config, file, sampleRate, telemetry: this.telemetry.buffer, group, input: g === 0, rings: g === 0 ? rings : [rings[g - 1]!] };
+      const w = new Worker(new URL('./worker.js', import.meta.url), { workerData: init });
+      w.on('message', (m: FromWorker) => this.receive(m));
+      w.on('error', (err) => this.fail(`the engine worker failed: ${err.message}`));
+      w.on('exit', (code) => {
+        if (!this.closing) this.fail(`the engine worker exited with code ${code}`);
+      });
+      return w;
     });
   }
 
@@ -121,42 +138,52 @@ export class EngineHost {
     }
   }
 
-  private request(make: (id: number) => ToWorker): Promise<WeightsReply> {
+  private requestOne(worker: Worker, make: (id: number) => ToWorker): Promise<WeightsReply> {
     if (this.failure !== null) return Promise.reject(new TapwardenError('TW_ERR_ENGINE_FAILED', { reason: this.failure }));
     const id = this.nextId++;
     return new Promise((resolve, reject) => {
       const timer = setTimeout(() => this.fail(`the engine worker did not answer within ${REQUEST_TIMEOUT_MS / 1000} s`), REQUEST_TIMEOUT_MS);
       this.pending.set(id, { resolve, reject, timer });
-      this.worker.postMessage(make(id));
+      worker.postMessage(make(id));
     });
   }
 
-  /** Starts the source (after the HTTP side is listening). */
+  /** To the thread of `channel`, or to every thread (null), in turn; the replies merged in channel order. */
+  private async request(channel: number | null, make: (id: number) => ToWorker): Promise<WeightsReply> {
+    const targets = channel === null ? this.workers : [this.workers[this.owner.get(channel) ?? 0]!];
+    const replies: WeightsReply[] = [];
+    for (const w of targets) replies.push(await this.requestOne(w, make));
+    const all = replies.flatMap((r) => r.channels);
+    if (channel !== null) return { channels: all };
+    return { channels: this.order.flatMap((ch) => all.filter((c) => c.channel === ch)) };
+  }
+
+  /** Starts the source and the other groups' threads (after the HTTP side is listening). */
   start(): void {
-    this.worker.postMessage({ t: 'start' } satisfies ToWorker);
+    for (const w of this.workers) w.postMessage({ t: 'start' } satisfies ToWorker);
   }
 
   /** An operator action on one measurement channel, or on every one (null). */
   control(op: ControlOp, channel: number | null = null): Promise<WeightsReply> {
-    return this.request((id) => ({ t: 'control', op, channel, id }));
+    return this.request(channel, (id) => ({ t: 'control', op, channel, id }));
   }
 
   weights(): Promise<WeightsReply> {
-    return this.request((id) => ({ t: 'weights', id }));
+    return this.request(null, (id) => ({ t: 'weights', id }));
   }
 
   restore(weights: number[], channel: number): Promise<WeightsReply> {
-    return this.request((id) => ({ t: 'restore', weights, channel, id }));
+    return this.request(channel, (id) => ({ t: 'restore', weights, channel, id }));
   }
 
-  /** Stops the source and playback; answers with the final weights. */
+  /** Stops the source (the input thread first), playback and the other threads; answers with the final weights. */
   stop(): Promise<WeightsReply> {
-    return this.request((id) => ({ t: 'stop', id }));
+    return this.request(null, (id) => ({ t: 'stop', id }));
   }
 
   async close(): Promise<void> {
     this.closing = true;
     for (const p of this.pending.values()) clearTimeout(p.timer);
-    await this.worker.terminate();
+    await Promise.all(this.workers.map((w) => w.terminate()));
   }
 }

@@ -57,7 +57,23 @@ export type FromWorker =
   | { t: 'reply'; id: number; weights: WeightsReply }
   | { t: 'failed'; id: number | null; message: string };
 
+/** A block queue toward another group's thread (blockRing.ts): its buffer and shape, and that group. */
+export interface RingInit {
+  buffer: SharedArrayBuffer;
+  slots: number;
+  columns: number;
+  frames: number;
+  /** The group's measurement channels, as indices into measurementChannels. */
+  group: number[];
+}
+
 export interface WorkerInit {
+  /** This thread's measurement channels, as indices into measurementChannels. */
+  group: number[];
+  /** The input thread (the first group's): it owns the source and feeds the others' queues. */
+  input: boolean;
+  /** The input thread: a queue toward each other group; another group's thread: its own queue. */
+  rings: RingInit[];
   config: Config;
   /** The WAV file a file source streams (resolved: the demo when stream.file is null). */
   file: string | null;

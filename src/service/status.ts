@@ -26,6 +26,8 @@ class ChannelStatus {
     const t = this.telemetry;
     const i = this.index;
     return {
+      /** Samples this channel's run has processed (behind the stream while its thread catches up). */
+      samples: t.getChannel(i, 'samples'),
       ...this.flags,
       saturations: {
         adaptiveWeights: t.getChannel(i, 'adaptiveWeightSaturations'),
@@ -114,10 +116,10 @@ export class ServiceStatus implements RunSink {
   private engine() {
     const t = this.telemetry;
     return {
+      ...this.channels[0]!.counters(),
       samples: t.get('samples'),
       blocks: t.get('blocks'),
       streamSeconds: t.get('streamSeconds'),
-      ...this.channels[0]!.counters(),
       queue: {
         depth: t.get('queueDepth'),
         capacity: t.get('queueCapacity'),

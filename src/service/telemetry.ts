@@ -22,7 +22,7 @@ const SLOTS = [
 ] as const;
 
 /** Counters each measurement channel's run keeps for itself. */
-const CHANNEL_SLOTS = ['adaptiveWeightSaturations', 'adaptiveSignalSaturations', 'cleanSignalSaturations', 'nonFiniteSamples', 'outOfRangeSamples'] as const;
+const CHANNEL_SLOTS = ['samples', 'adaptiveWeightSaturations', 'adaptiveSignalSaturations', 'cleanSignalSaturations', 'nonFiniteSamples', 'outOfRangeSamples'] as const;
 
 export type Slot = (typeof SLOTS)[number];
 export type ChannelSlot = (typeof CHANNEL_SLOTS)[number];

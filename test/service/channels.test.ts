@@ -1,4 +1,4 @@
-import { existsSync, readFileSync } from 'node:fs';
+import { existsSync, readFileSync, writeFileSync } from 'node:fs';
 import { join } from 'node:path';
 import { afterEach, describe, expect, it } from 'vitest';
 import WebSocket from 'ws';
@@ -74,6 +74,58 @@ describe('serve with several measurement channels', () => {
       expect(snap.weights.length).toBe(128);
     }
     expect(existsSync(weights)).toBe(false);
+  });
+
+  it('spread over two engine threads (stream.workers 2), each channel runs as replay does', async () => {
+    const dir = tmpDir();
+    cli(['demo', '--out', dir]);
+    const rec = join(dir, 'bench-trial.wav');
+    const s = await serveWith(dir, `input:\n  referenceChannels: [0, 3]\n  desiredChannels: [1, 2]\nstream:\n  file: ${rec}\n  pace: free\n  loop: false\n  workers: 2\n`);
+    try {
+      await s.logged((l) => String(l['msg']).startsWith('the stream ended'));
+      // The second thread may still be working through its queue when the input ends.
+      const progress = async () => ((await (await s.get('/api/status')).json()) as { channels: { samples: number }[] }).channels.map((c) => c.samples);
+      await until(async () => (await progress()).every((n) => n === 640_000), 20_000, 'both threads through the recording');
+      expect(await s.metric('tapwarden_queue_overruns_total')).toBe(0);
+      const r = cli(['replay', rec, '--config', join(dir, 'rig.yaml'), '--out', join(dir, 'replay')]);
+      expect(r.status, r.stderr).toBe(0);
+      for (const ch of [1, 2]) {
+        const summary = JSON.parse(readFileSync(join(dir, 'replay', `ch${ch}`, 'summary.json'), 'utf8'));
+        const w = (await (await s.get(`/api/weights?path=clean&channel=${ch}`)).json()) as { weights: number[]; cleanVersion: number };
+        expect(w.weights).toEqual(summary.weights.clean);
+        expect(w.cleanVersion).toBe(summary.weights.cleanVersion);
+        expect(await s.metric(`tapwarden_handoffs_accepted_total{channel="${ch}",reason="supervisor"}`)).toBe(summary.handoffs.accepted);
+      }
+    } finally {
+      await s.stop();
+    }
+    // More threads than measurement channels is refused before anything starts.
+    writeFileSync(join(dir, 'three.yaml'), 'input:\n  desiredChannels: [1, 2]\nstream:\n  workers: 3\n');
+    const bad = cli(['serve', '--config', join(dir, 'three.yaml')]);
+    expect(bad.status).toBe(2);
+    expect(bad.stderr.trim()).toMatch(/stream\.workers = 3 is not allowed; allowed: 1 to 2 \(the measurement channels to spread over them\) \[TW_ERR_CONFIG_VALUE\]$/);
+  });
+
+  it('a group thread that falls behind loses only its own blocks, counted as overruns', async () => {
+    const dir = tmpDir();
+    cli(['demo', '--out', dir]);
+    // Channel 2's thread stalls for 1.5 s at its first block; its queue holds 4 blocks of 256.
+    const s = await serveWith(dir, `input:\n  desiredChannels: [1, 2]\nstream:\n  file: ${join(dir, 'bench-trial.wav')}\n  queueBlocks: 4\n  blockFrames: 256\n  workers: 2\n`, {
+      TAPWARDEN_FAULT: 'group-stall:1500',
+    });
+    try {
+      await until(async () => (await s.metric('tapwarden_queue_overruns_total')) > 0 && (await s.metric('tapwarden_stream_seconds')) > 3, 20_000, 'overruns counted');
+      const status = async () => (await (await s.get('/api/status')).json()) as { engine: { samples: number; queue: { overruns: number } }; channels: { channel: number; samples: number }[] };
+      // Read once the second thread has drained its queue: then every block is processed or counted.
+      let st = await status();
+      await until(async () => {
+        st = await status();
+        return st.engine.samples - st.channels[1]!.samples === st.engine.queue.overruns * 256 && st.channels[0]!.samples === st.engine.samples;
+      }, 10_000, 'channel 2 behind by exactly its dropped blocks');
+      expect(st.engine.queue.overruns).toBeGreaterThan(10);
+    } finally {
+      await s.stop();
+    }
   });
 
   it('tags every feed message with its channel: each window brings one decision per channel', async () => {
