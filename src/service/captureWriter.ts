@@ -9,12 +9,12 @@ import { encodeState } from '../run/state.js';
 import { VERSION } from '../version.js';
 import type { Episode } from './captureRecorder.js';
 
-const NAME = /^capture-\d{8}T\d{6}(\.\d+)?Z-[a-z+]+\.wav$/;
+const NAME = /^capture-\d{8}T\d{6}(\.\d+)?Z-[a-z+]+-ch[\d-]+\.wav$/;
 
 /**
  * The main thread's side of captured episodes: each finished episode becomes CAPTURE.wav (the
  * input channels, 64-bit float so every sample is kept as the engine saw it) and CAPTURE.json
- * (src/run/capture.ts) in capture.dir, named by wall time and cause, and the oldest captures are
+ * (src/run/capture.ts) in capture.dir, named by wall time, cause and channels, and the oldest captures are
  * removed while there are more than capture.maxFiles or capture.maxBytes in all.
  */
 export class CaptureWriter {
@@ -30,7 +30,8 @@ export class CaptureWriter {
     makeDirectory(dir);
     const stamp = new Date().toISOString().replace(/[-:]/g, '');
     const causes = [...new Set(e.causes.map((c) => c.cause))].join('+');
-    const wav = join(dir, `capture-${stamp}-${causes}.wav`);
+    // The channels in the name: with stream.workers > 1 each thread's episode of one mark closes at once.
+    const wav = join(dir, `capture-${stamp}-${causes}-ch${e.runs.map((r) => r.channel).join('-')}.wav`);
     const w = new WavWriter(wav, this.sampleRate, e.channels.length, 'float64');
     w.write(e.channels, e.frames);
     w.close();

@@ -54,6 +54,17 @@ describe('several measurement channels (input.desiredChannels)', () => {
     expect(r.stdout).toMatch(/^base\/ch1 .*\(baseline\)/m);
   });
 
+  it('the demo rig: on the motor alone the flange keeps the pump; with both references both channels cancel about 40 dB (README "The demo bench")', () => {
+    const median = (out: string, ch: number) => JSON.parse(readFileSync(join(dir, out, `ch${ch}`, 'summary.json'), 'utf8')).cancellation.clean.medianDb as number;
+    expect(cli(['replay', rec, '--config', join(dir, 'rig.yaml'), '--out', join(dir, 'rig')]).status).toBe(0);
+    expect(cli(['replay', rec, '--config', two, '--out', join(dir, 'motor-only')]).status).toBe(0);
+    expect(median('rig', 1)).toBeGreaterThanOrEqual(39);
+    expect(median('rig', 2)).toBeGreaterThanOrEqual(39);
+    expect(median('motor-only', 2)).toBeLessThan(10);
+    const rig = JSON.parse(readFileSync(join(dir, 'rig', 'ch2', 'summary.json'), 'utf8'));
+    expect(rig.weights.clean).toHaveLength(2 * 64); // the motor's filter, then the pump's
+  });
+
   it('refuses the reference among them, a channel the file lacks, and a freeze of several', () => {
     writeFileSync(join(dir, 'self.yaml'), 'input:\n  desiredChannels: [1, 0]\n');
     const a = cli(['replay', rec, '--config', join(dir, 'self.yaml'), '--out', join(dir, 'x')]);

@@ -42,7 +42,7 @@ describe('captured episodes', () => {
     const files = wavs(caps);
     expect(files.length).toBeGreaterThanOrEqual(1);
     const wav = join(caps, files[0]!);
-    expect(files[0]).toMatch(/^capture-\d{8}T\d{6}\.\d{3}Z-[a-z+]+\.wav$/);
+    expect(files[0]).toMatch(/^capture-\d{8}T\d{6}\.\d{3}Z-[a-z+]+-ch1-2\.wav$/);
     const side = JSON.parse(readFileSync(wav.replace(/\.wav$/, '.json'), 'utf8'));
     expect(side.format).toBe('tapwarden-capture/1');
     expect(side.causes.map((c: { cause: string }) => c.cause)).toEqual(expect.arrayContaining(['refused', 'forecast']));

@@ -67,7 +67,7 @@ describe('the live page', () => {
     await page.waitForFunction(() => /^done: channel 2, clean version \d+/.test(document.getElementById('control-result')!.textContent ?? ''));
     await page.fill('#note', 'specimen rattle heard');
     await page.click('#do-mark');
-    await page.waitForFunction(() => /^capture-.*-mark\.wav \(mark\)$/.test(document.getElementById('last-capture')!.textContent ?? ''), null, { timeout: 10_000 });
+    await page.waitForFunction(() => /^capture-.*-mark-ch1-2\.wav \(mark\)$/.test(document.getElementById('last-capture')!.textContent ?? ''), null, { timeout: 10_000 });
     mkdirSync(ARTIFACTS, { recursive: true });
     await page.screenshot({ path: join(ARTIFACTS, 'live.png'), fullPage: true });
     // The service restarts on the same port; the page reconnects and keeps filling.
