@@ -20,7 +20,10 @@ import { statsOf, type AdaptiveKernel, type AdaptiveSpec, type FirKernel, type W
  *
  * Registers: data, weights, error and update gain g are (f+1)-bit Qf values that saturate on
  * every store; the FIR sum is exact (a wide accumulator) and rounded once; the normalized step
- * s is Q16 in a 32-bit register; the reference energy E is Q30 and exact.
+ * s is Q16 in a 32-bit register; the reference energy E is Q30 and exact. With K references
+ * (spec.references, samples interleaved) the same sequence runs per reference: each is
+ * quantized and pushed on its own line, the FIR sum runs over all K filters before its one
+ * rounding, E is all K lines' energy, and the update and mean removal go reference by reference.
  */
 
 const STEP_FRAC = 16;
@@ -49,6 +52,8 @@ export function fixedConstants(spec: AdaptiveSpec, fmt: QFormat): { muQ: number;
   };
 }
 
+const lines = (K: number, L: number) => Array.from({ length: K }, () => new DelayLine(L, (n) => new Float64Array(n)));
+
 function requireFormat(arithmetic: string): QFormat {
   const fmt = formatOf(arithmetic);
   if (fmt === null) throw new RangeError(`not a fixed-point arithmetic: ${arithmetic}`);
@@ -65,18 +70,30 @@ class Dot {
     private readonly rounding: Rounding,
   ) {}
 
-  compute(w: Float64Array, buf: Float64Array, p: number, L: number): number {
+  /**
+   * The sum over every reference's filter and line (reference k's taps at w[k L ..]), exact,
+   * rounded once: one reference is the plain FIR sum.
+   */
+  compute(w: Float64Array, lines: readonly DelayLine<Float64Array>[], L: number): number {
     const f = this.fmt.fracBits;
     let raw: number;
     if (f === 15) {
       // 16 x 16-bit products are below 2^30: a double sums 2^23 of them exactly.
       let acc = 0;
-      for (let k = 0; k < L; k++) acc += w[k]! * buf[p + k]!;
+      for (let r = 0; r < lines.length; r++) {
+        const { buf, pos: p } = lines[r]!;
+        const o = r * L;
+        for (let k = 0; k < L; k++) acc += w[o + k]! * buf[p + k]!;
+      }
       raw = this.rounding === 'nearest' ? Math.floor((acc + 16384) / 32768) : Math.floor(acc / 32768);
     } else {
       const a = this.acc;
       a.clear();
-      for (let k = 0; k < L; k++) a.add(buf[p + k]!, w[k]!);
+      for (let r = 0; r < lines.length; r++) {
+        const { buf, pos: p } = lines[r]!;
+        const o = r * L;
+        for (let k = 0; k < L; k++) a.add(buf[p + k]!, w[o + k]!);
+      }
       raw = a.result(f, this.rounding);
     }
     const v = saturate(raw, this.fmt);
@@ -127,8 +144,10 @@ export class FixedAdaptiveKernel implements AdaptiveKernel {
   private readonly fmt: QFormat;
   private readonly scale: number;
   private readonly W: Float64Array;
-  private readonly evalLine: DelayLine<Float64Array>;
-  private readonly adaptLine: DelayLine<Float64Array>;
+  /** One line per reference (spec.references): the un-noised ones filter, the noised ones adapt. */
+  private readonly evalLines: DelayLine<Float64Array>[];
+  private readonly adaptLines: DelayLine<Float64Array>[];
+  private readonly K: number;
   private readonly dot: Dot;
   private muQ: number;
   private deltaQ: number;
@@ -140,9 +159,10 @@ export class FixedAdaptiveKernel implements AdaptiveKernel {
     this.fmt = requireFormat(spec.arithmetic);
     this.regs = new Registers(this.fmt, spec.rounding);
     this.scale = this.regs.scale;
-    this.W = new Float64Array(spec.taps);
-    this.evalLine = new DelayLine(spec.taps, (n) => new Float64Array(n));
-    this.adaptLine = new DelayLine(spec.taps, (n) => new Float64Array(n));
+    this.K = spec.references ?? 1;
+    this.W = new Float64Array(this.K * spec.taps);
+    this.evalLines = lines(this.K, spec.taps);
+    this.adaptLines = lines(this.K, spec.taps);
     this.dot = new Dot(this.fmt, spec.rounding);
     ({ muQ: this.muQ, deltaQ: this.deltaQ, lfQ: this.lfQ } = fixedConstants(spec, this.fmt));
   }
@@ -179,22 +199,21 @@ export class FixedAdaptiveKernel implements AdaptiveKernel {
     end: number,
   ): void {
     const { taps: L, algorithm, leakShift, meanRemovalEvery, rounding } = this.spec;
+    const { K, W, dot, evalLines } = this;
     const f = this.fmt.fracBits;
-    const W = this.W;
-    const dot = this.dot;
+    const on = noise === null ? evalLines : this.adaptLines;
     for (let n = start; n < end; n++) {
-      const xq = this.q(x[n]!);
-      const dq = this.q(d[n]!);
-      const evOld = this.evalLine.push(xq);
-      let line = this.evalLine;
-      let old = evOld;
-      if (noise !== null) {
-        old = this.adaptLine.push(this.clip(xq + this.q(noise[n]!)));
-        line = this.adaptLine;
+      // Each reference quantized and pushed; the energy of all of them kept exactly.
+      for (let r = 0; r < K; r++) {
+        const xq = this.q(x[n * K + r]!);
+        let old = evalLines[r]!.push(xq);
+        if (noise !== null) old = this.adaptLines[r]!.push(this.clip(xq + this.q(noise[n * K + r]!)));
+        const line = on[r]!;
+        this.energy += this.energyTerm(line.buf[line.pos]!) - this.energyTerm(old);
       }
-      this.energy += this.energyTerm(line.buf[line.pos]!) - this.energyTerm(old);
+      const dq = this.q(d[n]!);
 
-      const yEval = dot.compute(W, this.evalLine.buf, this.evalLine.pos, L);
+      const yEval = dot.compute(W, evalLines, L);
       if (dot.clipped) this.regs.signalSaturations++;
       const eEval = this.clip(dq - yEval);
       y[n] = yEval * this.scale;
@@ -202,8 +221,8 @@ export class FixedAdaptiveKernel implements AdaptiveKernel {
       if (!this.adapting) continue;
 
       let err = eEval;
-      if (line !== this.evalLine) {
-        const yA = dot.compute(W, line.buf, line.pos, L);
+      if (noise !== null) {
+        const yA = dot.compute(W, on, L);
         if (dot.clipped) this.regs.signalSaturations++;
         err = this.clip(dq - yA);
       }
@@ -213,21 +232,27 @@ export class FixedAdaptiveKernel implements AdaptiveKernel {
           : this.muQ;
       const g = this.clip(mulShift(s, err, STEP_FRAC, rounding));
       const lf = this.lfQ;
-      const buf = line.buf;
-      const p = line.pos;
-      for (let k = 0; k < L; k++) {
-        const wk = W[k]!;
-        let v = wk + mulShift(g, buf[p + k]!, f, rounding);
-        if (lf !== 0) v -= mulShift(lf, wk, f, rounding);
-        if (leakShift !== null) v -= Math.floor(wk / 2 ** leakShift);
-        W[k] = this.regs.clipWeight(v);
+      for (let r = 0; r < K; r++) {
+        const { buf, pos: p } = on[r]!;
+        const o = r * L;
+        for (let k = 0; k < L; k++) {
+          const wk = W[o + k]!;
+          let v = wk + mulShift(g, buf[p + k]!, f, rounding);
+          if (lf !== 0) v -= mulShift(lf, wk, f, rounding);
+          if (leakShift !== null) v -= Math.floor(wk / 2 ** leakShift);
+          W[o + k] = this.regs.clipWeight(v);
+        }
       }
+      // Each reference's filter loses its own mean.
       if (meanRemovalEvery !== null && ++this.sinceMeanRemoval >= meanRemovalEvery) {
         this.sinceMeanRemoval = 0;
-        let sum = 0;
-        for (let k = 0; k < L; k++) sum += W[k]!;
-        const m = divRound(sum, L, rounding);
-        for (let k = 0; k < L; k++) W[k] = this.regs.clipWeight(W[k]! - m);
+        for (let r = 0; r < K; r++) {
+          const o = r * L;
+          let sum = 0;
+          for (let k = 0; k < L; k++) sum += W[o + k]!;
+          const m = divRound(sum, L, rounding);
+          for (let k = 0; k < L; k++) W[o + k] = this.regs.clipWeight(W[o + k]! - m);
+        }
       }
     }
   }
@@ -255,8 +280,7 @@ export class FixedAdaptiveKernel implements AdaptiveKernel {
 
   reset(): void {
     this.W.fill(0);
-    this.evalLine.clear();
-    this.adaptLine.clear();
+    for (const l of [...this.evalLines, ...this.adaptLines]) l.clear();
     this.energy = 0;
     this.sinceMeanRemoval = 0;
   }
@@ -276,15 +300,16 @@ export class FixedFirKernel implements FirKernel {
   private readonly fmt: QFormat;
   private readonly scale: number;
   private readonly W: Float64Array;
-  private readonly line: DelayLine<Float64Array>;
+  private readonly lines: DelayLine<Float64Array>[];
   private readonly dot: Dot;
 
   constructor(private readonly spec: AdaptiveSpec) {
     this.fmt = requireFormat(spec.arithmetic);
     this.regs = new Registers(this.fmt, spec.rounding);
     this.scale = this.regs.scale;
-    this.W = new Float64Array(spec.taps);
-    this.line = new DelayLine(spec.taps, (n) => new Float64Array(n));
+    const K = spec.references ?? 1;
+    this.W = new Float64Array(K * spec.taps);
+    this.lines = lines(K, spec.taps);
     this.dot = new Dot(this.fmt, spec.rounding);
   }
 
@@ -297,11 +322,12 @@ export class FixedFirKernel implements FirKernel {
   }
 
   run(x: Float64Array, d: Float64Array, y: Float64Array, e: Float64Array, start: number, end: number): void {
-    const L = this.W.length;
+    const K = this.lines.length;
+    const L = this.spec.taps;
     for (let n = start; n < end; n++) {
       const regs = this.regs;
-      this.line.push(regs.q(x[n]!));
-      const v = this.dot.compute(this.W, this.line.buf, this.line.pos, L);
+      for (let r = 0; r < K; r++) this.lines[r]!.push(regs.q(x[n * K + r]!));
+      const v = this.dot.compute(this.W, this.lines, L);
       if (this.dot.clipped) regs.signalSaturations++;
       y[n] = v * this.scale;
       e[n] = regs.clip(regs.q(d[n]!) - v) * this.scale;
@@ -321,12 +347,12 @@ export class FixedFirKernel implements FirKernel {
   }
 
   copyHistoryFrom(other: FirKernel): void {
-    this.line.copyFrom((other as FixedFirKernel).line);
+    this.lines.forEach((l, r) => l.copyFrom((other as FixedFirKernel).lines[r]!));
   }
 
   reset(): void {
     this.W.fill(0);
-    this.line.clear();
+    for (const l of this.lines) l.clear();
   }
 
   weightStats(out: WeightStats): WeightStats {

@@ -8,15 +8,18 @@ import { WasmAdaptiveKernel, WasmFirKernel, hasFastKernel } from './wasm/fastKer
 
 /**
  * Which implementation runs: the fast WebAssembly kernels where they exist (float64, q15, q31)
- * and the reference kernels otherwise (float32; several references: multiKernel.ts), or the
- * reference everywhere when asked (TAPWARDEN_KERNELS=reference), e.g. to cross-check a result.
+ * and the reference kernels otherwise (float32; several references: fixedKernel.ts for q15 and
+ * q31, multiKernel.ts for float64), or the reference everywhere when asked (TAPWARDEN_KERNELS=reference), e.g. to cross-check a result.
  */
 export type KernelChoice = 'fast' | 'reference';
 
 function useFast(spec: AdaptiveSpec, choice: KernelChoice | undefined): boolean {
   const wanted = choice ?? (process.env['TAPWARDEN_KERNELS'] === 'reference' ? 'reference' : 'fast');
-  return wanted === 'fast' && hasFastKernel(spec);
+  return wanted === 'fast' && !multi(spec) && hasFastKernel(spec);
 }
+
+/** Several references: the reference kernels (fixedKernel.ts, multiKernel.ts) take them. */
+const multi = (spec: AdaptiveSpec) => (spec.references ?? 1) > 1;
 
 const isFixed = (spec: AdaptiveSpec) => formatOf(spec.arithmetic) !== null;
 
@@ -24,10 +27,10 @@ const fdafOptions = (spec: AdaptiveSpec) => ({ blockSize: spec.blockSize ?? 256,
 
 /** The adaptive kernel for the spec's algorithm and arithmetic. */
 export function createAdaptiveKernel(spec: AdaptiveSpec, choice?: KernelChoice): AdaptiveKernel {
-  if ((spec.references ?? 1) > 1) return new MultiFloatAdaptiveKernel(spec);
   if (spec.algorithm === 'pbfdaf') return new FdafAdaptiveKernel(spec, fdafOptions(spec));
   if (useFast(spec, choice)) return new WasmAdaptiveKernel(spec);
   if (isFixed(spec)) return new FixedAdaptiveKernel(spec);
+  if (multi(spec)) return new MultiFloatAdaptiveKernel(spec);
   return spec.arithmetic === 'float32' ? new Float32AdaptiveKernel(spec) : new FloatAdaptiveKernel(spec);
 }
 
@@ -36,12 +39,12 @@ export function createAdaptiveKernel(spec: AdaptiveSpec, choice?: KernelChoice):
  * kernel fed the same reference, lets a frequency-domain clean path reuse its input transforms.
  */
 export function createFirKernel(spec: AdaptiveSpec, choice?: KernelChoice, partner?: AdaptiveKernel): FirKernel {
-  if ((spec.references ?? 1) > 1) return new MultiFloatFirKernel(spec);
   if (spec.algorithm === 'pbfdaf') {
     return new FdafFirKernel(spec, fdafOptions(spec), partner instanceof FdafAdaptiveKernel ? partner : undefined);
   }
   if (useFast(spec, choice)) return new WasmFirKernel(spec);
   if (isFixed(spec)) return new FixedFirKernel(spec);
+  if (multi(spec)) return new MultiFloatFirKernel(spec);
   return spec.arithmetic === 'float32' ? new Float32FirKernel(spec) : new FloatFirKernel(spec);
 }
 
