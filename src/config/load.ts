@@ -124,9 +124,9 @@ function crossChecks(c: Config): string | null {
   if (c.stream.workers > measured) {
     return `stream.workers = ${c.stream.workers} is not allowed; allowed: 1 to ${measured} (the measurement channels to spread over them)`;
   }
-  if (refs.length > 1 && (filter.algorithm !== 'nlms' || filter.arithmetic === 'float32')) {
-    const key = filter.algorithm !== 'nlms' ? 'algorithm' : 'arithmetic';
-    return `filter.${key} = ${quote(filter[key])} is not allowed with several references (input.referenceChannels ${quote(refs)}); allowed: algorithm nlms in float64, q15 or q31 (the multiple-input filter; LMS's step bound would need the references' joint correlation)`;
+  if (refs.length > 1 && (filter.algorithm === 'pbfdaf' || filter.arithmetic === 'float32')) {
+    const key = filter.algorithm === 'pbfdaf' ? 'algorithm' : 'arithmetic';
+    return `filter.${key} = ${quote(filter[key])} is not allowed with several references (input.referenceChannels ${quote(refs)}); allowed: algorithm lms or nlms in float64, q15 or q31 (the multiple-input filter)`;
   }
   if (filter.algorithm === 'pbfdaf') {
     const unsupported = (

@@ -11,7 +11,7 @@ import { WavReader } from '../io/wav/reader.js';
 import { BandSink } from '../run/bands.js';
 import type { CaptureFile } from '../run/capture.js';
 import { decodeState } from '../run/state.js';
-import { checkChannels, checkLmsStep, scanReference, type FrameRange, type ReferenceScan } from '../run/preflight.js';
+import { checkChannels, checkLmsStep, scanReferences, type FrameRange, type ReferenceScan } from '../run/preflight.js';
 import { Run } from '../run/run.js';
 import { DecisionLog, WavOutputs } from '../run/sinks.js';
 import { SummarySink, type Judgement } from '../run/summary.js';
@@ -111,14 +111,14 @@ export function replay(opts: ReplayOptions): ReplayResult {
     checkChannels(reader.format.channels, first.config, recording);
     const range = framesOf(opts.range, reader.frames, rate, recording);
     const warnings: Warning[] = reader.warnings.map((message) => ({ code: 'TW_WARN_INPUT', message }));
-    let scan: ReferenceScan | null = null;
+    let scans: ReferenceScan[] | null = null;
     const refused: ReplayResult['refused'] = [];
     const admitted: Policy[] = [];
     for (const p of policies) {
       if (p.config.filter.algorithm === 'lms') {
-        scan ??= scanReference(reader, referenceChannels(first.config)[0]!, range);
+        scans ??= scanReferences(reader, referenceChannels(first.config), range);
         try {
-          for (const message of checkLmsStep(scan, p.config, p.configFile, rate)) warnings.push({ code: 'TW_WARN_STEP', message: `${p.name}: ${message}` });
+          for (const message of checkLmsStep(scans, p.config, p.configFile, rate)) warnings.push({ code: 'TW_WARN_STEP', message: `${p.name}: ${message}` });
         } catch (err) {
           if (!opts.skipRefused || !(err instanceof TapwardenError)) throw err;
           refused.push({ policy: p.name, error: err });

@@ -77,6 +77,11 @@ export function scanReference(reader: WavReader, channel: number, range: FrameRa
   return { samples: samples.subarray(0, n), startSeconds: (range.from + best * second) / rate };
 }
 
+/** The scan of every reference channel, in order (a multiple-input LMS checks all of them). */
+export function scanReferences(reader: WavReader, channels: readonly number[], range: FrameRange): ReferenceScan[] {
+  return channels.map((c) => scanReference(reader, c, range));
+}
+
 /** A sample as the engine sees it: non-finite -> 0, clamped to the input range. */
 function sanitize(v: number): number {
   if (!(v - v === 0)) return 0;
@@ -84,19 +89,28 @@ function sanitize(v: number): number {
 }
 
 /**
- * LMS step bounds on this reference: a step at or above the mean-square bound 2/tr(R + leak I)
+ * LMS step bounds on these references: a step at or above the mean-square bound 2/tr(R + leak I)
  * is refused (TW_ERR_CONFIG_STEP_BOUND, naming both bounds and the figures); one above the
- * Gaussian-input bound 2/(3 tr(R + leak I)) is returned as a warning. NLMS and pbfdaf have
- * static bounds, checked with the config.
+ * Gaussian-input bound 2/(3 tr(R + leak I)) is returned as a warning. With K references R is the
+ * stacked regressor's: its trace is the references' traces summed (exact), and the sum of their
+ * largest eigenvalues bounds its largest (docs/REFERENCES.md, "Multiple-input LMS/NLMS"). NLMS
+ * and pbfdaf have static bounds, checked with the config.
  */
-export function checkLmsStep(scan: ReferenceScan, config: Config, configFile: string, rate: number): string[] {
+export function checkLmsStep(scans: readonly ReferenceScan[], config: Config, configFile: string, rate: number): string[] {
   const { algorithm, taps, step, leak } = config.filter;
-  if (algorithm !== 'lms' || scan.samples.length === 0) return [];
-  const r = autocorrelationFft(scan.samples, taps);
-  const lambdaMax = toeplitzLambdaMax(r);
-  const b = lmsStepBounds(lambdaMax, taps * r[0]!, taps, leak);
-  const where = `the loudest ${(scan.samples.length / rate).toFixed(1)} s of the reference, from ${scan.startSeconds.toFixed(1)} s`;
-  const figures = `tr R = ${(taps * r[0]!).toPrecision(4)} (${taps} taps x power ${r[0]!.toPrecision(4)}), lambda_max = ${lambdaMax.toPrecision(4)}, over ${where}`;
+  if (algorithm !== 'lms' || scans.every((s) => s.samples.length === 0)) return [];
+  const each = scans.map((scan) => {
+    const r = autocorrelationFft(scan.samples, taps);
+    return { scan, power: r[0]!, lambdaMax: toeplitzLambdaMax(r) };
+  });
+  const lambdaMax = each.reduce((a, x) => a + x.lambdaMax, 0);
+  const traceR = each.reduce((a, x) => a + taps * x.power, 0);
+  const b = lmsStepBounds(lambdaMax, traceR, taps * scans.length, leak);
+  const where = (scan: ReferenceScan) => `the loudest ${(scan.samples.length / rate).toFixed(1)} s of the reference, from ${scan.startSeconds.toFixed(1)} s`;
+  const figures =
+    scans.length === 1
+      ? `tr R = ${traceR.toPrecision(4)} (${taps} taps x power ${each[0]!.power.toPrecision(4)}), lambda_max = ${lambdaMax.toPrecision(4)}, over ${where(scans[0]!)}`
+      : `tr R = ${traceR.toPrecision(4)} (${taps} taps x the ${scans.length} references' powers ${each.map((x) => x.power.toPrecision(4)).join(' + ')}), lambda_max <= ${lambdaMax.toPrecision(4)} (their lambda_max summed), each over its loudest ${(scans[0]!.samples.length / rate).toFixed(1)} s`;
   if (!(step < b.meanSquare)) {
     throw new TapwardenError('TW_ERR_CONFIG_STEP_BOUND', {
       file: configFile,

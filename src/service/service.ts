@@ -6,7 +6,7 @@ import { weightLimitOf } from '../dsp/kernels.js';
 import { engineSettingsOf } from '../engine/settings.js';
 import { TapwardenError, oneLine } from '../errors.js';
 import { WavReader } from '../io/wav/reader.js';
-import { checkChannels, checkLmsStep, scanReference, type ReferenceScan } from '../run/preflight.js';
+import { checkChannels, checkLmsStep, scanReferences, type ReferenceScan } from '../run/preflight.js';
 import type { DecisionRecord, RunEvent } from '../run/record.js';
 import type { RunSink } from '../run/run.js';
 import { VERSION } from '../version.js';
@@ -67,12 +67,12 @@ function prepareSource(
   config: Config,
   configFile: string,
   warn: (m: string) => void,
-): { file: string | null; sampleRate: number; description: string; scan: ReferenceScan | null } {
+): { file: string | null; sampleRate: number; description: string; scans: ReferenceScan[] | null } {
   const { stream } = config;
   if (stream.source === 'device') {
     checkChannels(stream.device.channels, config, `stream.device (${stream.device.channels} channels)`);
     const d = stream.device;
-    return { file: null, sampleRate: d.sampleRate, description: `device ${d.input === null ? '(default)' : JSON.stringify(d.input)}, ${d.channels} channel(s) at ${d.sampleRate} Hz`, scan: null };
+    return { file: null, sampleRate: d.sampleRate, description: `device ${d.input === null ? '(default)' : JSON.stringify(d.input)}, ${d.channels} channel(s) at ${d.sampleRate} Hz`, scans: null };
   }
   const file = stream.file ?? cachedDemo();
   const reader = WavReader.open(file);
@@ -81,9 +81,9 @@ function prepareSource(
     for (const w of reader.warnings) warn(w);
     const rate = reader.format.sampleRate;
     // Kept for live settings: a new LMS step is checked against the same reference.
-    const scan = config.filter.algorithm === 'lms' ? scanReference(reader, referenceChannels(config)[0]!, { from: 0, to: reader.frames }) : null;
-    if (scan !== null) for (const w of checkLmsStep(scan, config, configFile, rate)) warn(w);
-    return { file, sampleRate: rate, description: `file ${file} (${stream.pace}${stream.loop ? ', looped' : ''})`, scan };
+    const scans = config.filter.algorithm === 'lms' ? scanReferences(reader, referenceChannels(config), { from: 0, to: reader.frames }) : null;
+    if (scans !== null) for (const w of checkLmsStep(scans, config, configFile, rate)) warn(w);
+    return { file, sampleRate: rate, description: `file ${file} (${stream.pace}${stream.loop ? ', looped' : ''})`, scans };
   } finally {
     reader.close();
   }
@@ -177,7 +177,7 @@ export async function startService(config: Config, configFile: string): Promise<
   let live = config;
   const changeSettings = async (body: unknown, why = 'request') => {
     const next = liveSettings(live, body);
-    if (source.scan !== null) for (const w of checkLmsStep(source.scan, next, 'POST /api/control/settings', source.sampleRate)) log.warn({ code: 'TW_WARN_STEP' }, w);
+    if (source.scans !== null) for (const w of checkLmsStep(source.scans, next, 'POST /api/control/settings', source.sampleRate)) log.warn({ code: 'TW_WARN_STEP' }, w);
     await host.control({ kind: 'settings', settings: engineSettingsOf(next, source.sampleRate) }, null);
     live = next;
     status.setRequestedSettings(liveView(next));

@@ -92,3 +92,57 @@ describe('LMS step bounds from the recording', () => {
     expect(run(0.5 * (2 / (3 * trace)))).toBe(0);
   });
 });
+
+describe('LMS step bounds with two references (the stacked regressor)', () => {
+  // A second reference on channel 2, loud throughout; the desired hears both.
+  const x2 = bandLimited(n, 0.05, 0.45, 0.15, 703);
+  const d2 = through([0.3, -0.2, 0.1], x2, d);
+  const two = join(dir, 'two.wav');
+  const tw = new WavWriter(two, RATE, 3, 'float32');
+  tw.write([x, d2, x2], n);
+  tw.close();
+  const half = 8; // taps per reference: a 16 x 16 stacked R keeps ml-matrix quick
+  const cfg = (step: number) => {
+    const f = join(dir, `two-${step}.yaml`);
+    writeFileSync(f, `input:\n  referenceChannels: [0, 2]\n  desiredChannel: 1\nfilter:\n  algorithm: lms\n  taps: ${half}\n  step: ${step}\n`);
+    return f;
+  };
+
+  it('refuses at 2/tr R of the stacked R (its trace from SoX decode, its eigenvalues from ml-matrix) and prints a lambda_max bound above the true one', () => {
+    // The loudest 10 s of each reference: the second half of channel 0, the whole of channel 2's
+    // first 10 s (it is stationary: any 10 s give the same power).
+    const decode = (channel: number, from: number) => {
+      const raw = join(dir, `two-${channel}.f64`);
+      sox(two, '-t', 'raw', '-e', 'floating-point', '-b', '64', '-L', raw, 'remix', String(channel + 1), 'trim', String(from), '10');
+      const b = readFileSync(raw);
+      return new Float64Array(b.buffer, b.byteOffset, b.length / 8);
+    };
+    const u = [decode(0, 10), decode(2, 0)];
+    // Each reference's own R block on its own stretch (as tapwarden scans them) gives the trace.
+    const power = u.map((v) => v.reduce((a, s) => a + s * s, 0) / v.length);
+    const trace = half * (power[0]! + power[1]!);
+    // The stacked R over the same stretches, cross blocks included, for the true lambda_max.
+    const m = Math.min(u[0]!.length, u[1]!.length);
+    const R = Matrix.zeros(2 * half, 2 * half);
+    for (let a = 0; a < 2; a++)
+      for (let b = 0; b < 2; b++)
+        for (let i = 0; i < half; i++)
+          for (let j = 0; j < half; j++) {
+            let acc = 0;
+            for (let t = half; t < m; t++) acc += u[a]![t - i]! * u[b]![t - j]!;
+            R.set(a * half + i, b * half + j, acc / (m - half));
+          }
+    const lambdaTrue = Math.max(...new EigenvalueDecomposition(R, { assumeSymmetric: true }).realEigenvalues);
+    const r = cli(['replay', two, '--config', cfg(1.001 * (2 / trace)), '--out', join(dir, 'two-refused')]);
+    expect(r.status).toBe(2);
+    const got = /= ([\d.e+-]+) \(mean convergence.*tr R = ([\d.e+-]+) \(8 taps x the 2 references' powers .*lambda_max <= ([\d.e+-]+) \(their lambda_max summed\).*\[TW_ERR_CONFIG_STEP_BOUND\]$/.exec(r.stderr.trim());
+    expect(got, r.stderr).not.toBeNull();
+    const [, bound, tr, lmax] = got!.map(Number);
+    expect(Math.abs(tr! / trace - 1)).toBeLessThan(1e-3);
+    expect(Math.abs(bound! / (2 / trace) - 1)).toBeLessThan(1e-3);
+    expect(lmax!).toBeGreaterThanOrEqual(0.999 * lambdaTrue);
+    const ok = cli(['replay', two, '--config', cfg(0.2 * (2 / trace)), '--out', join(dir, 'two-ok')]);
+    expect(ok.status, ok.stderr).toBe(0);
+    expect(ok.stderr).toBe('');
+  });
+});

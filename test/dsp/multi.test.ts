@@ -31,7 +31,7 @@ function ours(): { e: Float64Array; w: Float64Array } {
   return { e, w: k.getWeights() };
 }
 
-describe('multiple-input NLMS (two references)', () => {
+describe('multiple-input LMS/NLMS (two references)', () => {
   it.skipIf(!numpy)('matches numpy running the same recursion (errors and final weights)', () => {
     const script = `import json,sys,numpy as np
 v=json.load(sys.stdin); x=[np.array(v['x1']),np.array(v['x2'])]; d=np.array(v['d']); L=${L}; mu=${s.step}; delta=${s.delta}; gamma=${s.leak}; every=${s.meanRemovalEvery}
@@ -55,8 +55,8 @@ print(json.dumps({'e':e.tolist(),'w':w.reshape(-1).tolist()}))`;
     for (let k = 0; k < 2 * L; k++) expect(got.w[k]!).toBeCloseTo(ref.w[k]!, 9);
   });
 
-  it('with one reference it is the single-input float64 kernel, bit for bit', () => {
-    const one = { ...s, references: 1 };
+  it.each(['nlms', 'lms'] as const)('with one reference it is the single-input float64 kernel, bit for bit (%s, noise injected)', (algorithm) => {
+    const one = { ...s, algorithm, step: algorithm === 'lms' ? 0.02 : s.step, references: 1 };
     const a = new MultiFloatAdaptiveKernel(one);
     const b = new FloatAdaptiveKernel(one);
     const noise = white(n, 0.01, 804);
