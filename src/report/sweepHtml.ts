@@ -50,7 +50,13 @@ function shade(v: number | null, lo: number, hi: number): string {
 function links(cells: readonly CellResult[], p: Record<string, Scalar>): string {
   return cells
     .filter((c) => !c.baseline && same(c.parameters as Record<string, Scalar>, p))
-    .map((c, i) => (c.error === null ? `<a href="cells/${c.key}/summary.json" title="${esc(c.recording)}">${i + 1}</a>` : `<span class="failed" title="${esc(c.error.message)}">${i + 1}!</span>`))
+    .map((c, i) => {
+      if (c.error !== null) return `<span class="failed" title="${esc(c.error.message)}">${i + 1}!</span>`;
+      // Several measurement channels: the figures are the worst one's; each channel's on hover.
+      const per = c.channels?.map((x) => `ch${x.channel} ${db(x.figures.cleanCancellationMedianDb)} ${pct(x.figures.healthyShare)} ${x.figures.verdict}`).join('; ');
+      const title = per === undefined ? c.recording : `${c.recording}: ${per}; worst ch${c.channel}`;
+      return `<a href="cells/${c.key}/summary.json" title="${esc(title)}">${i + 1}${per === undefined ? '' : `<small>ch${c.channel}</small>`}</a>`;
+    })
     .join(' ');
 }
 
@@ -137,7 +143,7 @@ svg.pareto { background: #fff; border: 1px solid #e6e2d8; } svg text { font-size
 <p><b>Pick:</b> ${best === null ? 'none: every combination failed or is worse than the baseline' : `${esc(label(best.parameters))}: worst-case median ${db(best.worst.cleanCancellationMedianDb)}, 5th percentile ${db(best.worst.cleanCancellationP5Db)}, healthy ${pct(best.worst.healthyShare)}, ${best.verdict}`}</p>
 ${input.axes.length <= 2 ? heatMap(input, best) : pareto(input, best)}
 <h2>All combinations</h2>
-<p class="note">In the order of the pick's rule. Worst case over the recordings, then the median of their medians. Links: each recording's summary.json, in the order given.</p>
+<p class="note">In the order of the pick's rule. Worst case over the recordings, then the median of their medians. Links: each recording's summary.json, in the order given (with several measurement channels, the worst channel's, its number beside the link and every channel's figures on hover).</p>
 <table>
 <tr><th>combination</th><th>verdict</th><th>median</th><th>p5</th><th>healthy</th><th>worst burst</th><th>w.sat</th><th>median of medians</th><th>gate</th><th>figures</th></tr>
 ${rows}

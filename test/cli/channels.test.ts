@@ -93,5 +93,8 @@ describe('several measurement channels (input.desiredChannels)', () => {
     const [c1, c2] = cell.channels.map((c: { figures: { healthyShare: number } }) => c.figures.healthyShare);
     expect(cell.figures.healthyShare).toBe(Math.min(c1, c2));
     expect(JSON.parse(readFileSync(join(dir, 'sw', 'cells', key, 'summary.json'), 'utf8')).channel).toBe(cell.channel);
+    // The report names the worst channel beside each link, and every channel's figures on hover.
+    const html = readFileSync(join(dir, 'sw', 'report.html'), 'utf8');
+    expect(html).toMatch(new RegExp(`title="[^"]*: ch1 [^"]*; ch2 [^"]*; worst ch${cell.channel}">1<small>ch${cell.channel}</small></a>`));
   });
 });
