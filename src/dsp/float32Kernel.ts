@@ -150,9 +150,11 @@ export class Float32FirKernel extends FloatFirKernel {
   override run(x: Float64Array, d: Float64Array, y: Float64Array, e: Float64Array, start: number, end: number): void {
     const w = this.w as Float32Array;
     const L = w.length;
+    // One reference (the config allows no more in float32).
+    const line = this.lines[0]!;
     for (let n = start; n < end; n++) {
-      this.line.push(f(x[n]!));
-      const yn = dot(w, this.line.buf as Float32Array, this.line.pos, L);
+      line.push(f(x[n]!));
+      const yn = dot(w, line.buf as Float32Array, line.pos, L);
       y[n] = yn;
       e[n] = f(f(d[n]!) - yn);
     }

@@ -2,14 +2,13 @@ import { FdafAdaptiveKernel, FdafFirKernel } from './fdaf.js';
 import { FixedAdaptiveKernel, FixedFirKernel, formatOf } from './fixedKernel.js';
 import { Float32AdaptiveKernel, Float32FirKernel } from './float32Kernel.js';
 import { FloatAdaptiveKernel, FloatFirKernel } from './floatKernel.js';
-import { MultiFloatAdaptiveKernel, MultiFloatFirKernel } from './multiKernel.js';
 import type { AdaptiveKernel, AdaptiveSpec, FirKernel } from './types.js';
 import { WasmAdaptiveKernel, WasmFirKernel, hasFastKernel } from './wasm/fastKernels.js';
 
 /**
  * Which implementation runs: the fast WebAssembly kernels where they exist (float64, q15, q31)
  * and the reference kernels otherwise (float32; several references: fixedKernel.ts for q15 and
- * q31, multiKernel.ts for float64), or the reference everywhere when asked (TAPWARDEN_KERNELS=reference), e.g. to cross-check a result.
+ * q31, floatKernel.ts for float64), or the reference everywhere when asked (TAPWARDEN_KERNELS=reference), e.g. to cross-check a result.
  */
 export type KernelChoice = 'fast' | 'reference';
 
@@ -18,7 +17,7 @@ function useFast(spec: AdaptiveSpec, choice: KernelChoice | undefined): boolean 
   return wanted === 'fast' && !multi(spec) && hasFastKernel(spec);
 }
 
-/** Several references: the reference kernels (fixedKernel.ts, multiKernel.ts) take them. */
+/** Several references: the reference kernels (fixedKernel.ts, floatKernel.ts) take them. */
 const multi = (spec: AdaptiveSpec) => (spec.references ?? 1) > 1;
 
 const isFixed = (spec: AdaptiveSpec) => formatOf(spec.arithmetic) !== null;
@@ -30,7 +29,6 @@ export function createAdaptiveKernel(spec: AdaptiveSpec, choice?: KernelChoice):
   if (spec.algorithm === 'pbfdaf') return new FdafAdaptiveKernel(spec, fdafOptions(spec));
   if (useFast(spec, choice)) return new WasmAdaptiveKernel(spec);
   if (isFixed(spec)) return new FixedAdaptiveKernel(spec);
-  if (multi(spec)) return new MultiFloatAdaptiveKernel(spec);
   return spec.arithmetic === 'float32' ? new Float32AdaptiveKernel(spec) : new FloatAdaptiveKernel(spec);
 }
 
@@ -44,7 +42,6 @@ export function createFirKernel(spec: AdaptiveSpec, choice?: KernelChoice, partn
   }
   if (useFast(spec, choice)) return new WasmFirKernel(spec);
   if (isFixed(spec)) return new FixedFirKernel(spec);
-  if (multi(spec)) return new MultiFloatFirKernel(spec);
   return spec.arithmetic === 'float32' ? new Float32FirKernel(spec) : new FloatFirKernel(spec);
 }
 

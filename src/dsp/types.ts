@@ -32,7 +32,7 @@ export interface AdaptiveSpec {
   /** pbfdaf: apply the gradient constraint. */
   readonly constrained?: boolean;
   /**
-   * K: references the filter has (default 1), one `taps`-long filter each (multiKernel.ts): the
+   * K: references the filter has (default 1), one `taps`-long filter each (floatKernel.ts, fixedKernel.ts): the
    * samples come interleaved, x[n K + k], and the weights hold K x taps values.
    */
   readonly references?: number;
