@@ -258,42 +258,8 @@ export class DualPathEngine {
     m: number,
   ): void {
     const { x, d, noise, yA, eA, yC, eC, K } = this;
-    let bad = 0;
-    let over = 0;
-    for (let k = 0; k < K; k++) {
-      const ref = refs[k]!;
-      for (let j = 0; j < m; j++) {
-        let xv = ref[offset + j]!;
-        // Compare, do not call: NaN fails both tests and +-Infinity passes the second.
-        if (!(xv <= INPUT_LIMIT && xv >= -INPUT_LIMIT)) {
-          if (xv !== xv || xv === Infinity || xv === -Infinity) {
-            xv = 0;
-            bad++;
-          } else {
-            xv = xv > 0 ? INPUT_LIMIT : -INPUT_LIMIT;
-            over++;
-          }
-        }
-        x[j * K + k] = xv;
-      }
-    }
-    for (let j = 0; j < m; j++) {
-      let dv = des[offset + j]!;
-      if (!(dv <= INPUT_LIMIT && dv >= -INPUT_LIMIT)) {
-        if (dv !== dv || dv === Infinity || dv === -Infinity) {
-          dv = 0;
-          bad++;
-        } else {
-          dv = dv > 0 ? INPUT_LIMIT : -INPUT_LIMIT;
-          over++;
-        }
-      }
-      d[j] = dv;
-    }
-    this.nonFiniteWindow += bad;
-    this.nonFiniteSamples += bad;
-    this.outOfRangeWindow += over;
-    this.outOfRangeSamples += over;
+    for (let k = 0; k < K; k++) this.scrub(refs[k]!, offset, m, x, k, K);
+    this.scrub(des, offset, m, d, 0, 1);
     if (this.noiseGen !== null) this.noiseGen.fill(noise, this.noiseSigma, 0, m * K);
 
     this.adaptive.run(x, d, this.noiseGen === null ? null : noise, yA, eA, 0, m);
@@ -320,6 +286,33 @@ export class DualPathEngine {
     this.sumD = sd;
     this.sumEA = sa;
     this.sumEC = sc;
+  }
+
+  /**
+   * Copies m input samples from src[offset ..] to dst[at + j stride]: non-finite ones counted and
+   * replaced by zero, finite ones beyond +-INPUT_LIMIT counted and clamped to it.
+   */
+  private scrub(src: Float64Array, offset: number, m: number, dst: Float64Array, at: number, stride: number): void {
+    let bad = 0;
+    let over = 0;
+    for (let j = 0; j < m; j++) {
+      let v = src[offset + j]!;
+      // Compare, do not call: NaN fails both tests and +-Infinity passes the second.
+      if (!(v <= INPUT_LIMIT && v >= -INPUT_LIMIT)) {
+        if (v !== v || v === Infinity || v === -Infinity) {
+          v = 0;
+          bad++;
+        } else {
+          v = v > 0 ? INPUT_LIMIT : -INPUT_LIMIT;
+          over++;
+        }
+      }
+      dst[at + j * stride] = v;
+    }
+    this.nonFiniteWindow += bad;
+    this.nonFiniteSamples += bad;
+    this.outOfRangeWindow += over;
+    this.outOfRangeSamples += over;
   }
 
   /** Blends the previous weights' output into the new one's with a raised-cosine ramp. */
