@@ -2,11 +2,11 @@
  * A bounded single-producer, single-consumer queue of input blocks in a SharedArrayBuffer, from
  * the input worker to a worker that runs another group of measurement channels: `slots` blocks
  * of `columns` channels of up to `frames` samples. A live producer never waits: a block that
- * finds the queue full is dropped and counted (as a capture device's buffer would), so a slow
- * group can never hold up the input path or the other groups. The consumer sleeps in
+ * finds the queue full is dropped (the producer counts it, as a capture device's buffer would),
+ * so a slow group can never hold up the input path or the other groups. The consumer sleeps in
  * Atomics.waitAsync until a block is written, so its event loop stays free for requests.
  * Hand-written: the npm ring buffers move bytes or single values, not blocks of several float64
- * channels with a drop count.
+ * channels.
  */
 
 /** Atomics.waitAsync (Node 16+; not yet in TypeScript's ES2022 library). */
@@ -16,8 +16,7 @@ const waitAsync = (Atomics as unknown as {
 
 const WRITE = 0;
 const READ = 1;
-const DROPPED = 2;
-const HEADER = 4;
+const HEADER = 2;
 
 export class BlockRing {
   private readonly header: Int32Array;
@@ -51,16 +50,6 @@ export class BlockRing {
     return { buffer: this.buffer, slots: this.slots, columns: this.columns, frames: this.frames };
   }
 
-  /** Blocks dropped because the queue was full, since the start. */
-  get dropped(): number {
-    return Atomics.load(this.header, DROPPED);
-  }
-
-  /** Blocks waiting. */
-  get depth(): number {
-    return Atomics.load(this.header, WRITE) - Atomics.load(this.header, READ);
-  }
-
   /**
    * Producer: copies n frames of each column in. When the queue is full the block is dropped
    * (false), or, with `wait` (a file streamed as fast as the engines go: nothing is live), the
@@ -69,10 +58,7 @@ export class BlockRing {
   push(cols: readonly Float64Array[], n: number, wait = false): boolean {
     const w = Atomics.load(this.header, WRITE);
     for (let r = Atomics.load(this.header, READ); w - r >= this.slots; r = Atomics.load(this.header, READ)) {
-      if (!wait) {
-        Atomics.add(this.header, DROPPED, 1);
-        return false;
-      }
+      if (!wait) return false;
       Atomics.wait(this.header, READ, r, 100);
     }
     const slot = w % this.slots;
