@@ -60,6 +60,7 @@ describe('serve lifecycle', () => {
       state() {},
       warning() {},
       ended() {},
+      episode() {},
       failed: (m: string) => (failed = m),
     });
     try {
