@@ -1,5 +1,18 @@
 import FFT from 'fft.js';
 
+/** Segments replay's spectra average at least, where the recording holds that many. */
+export const REPLAY_SPECTRUM_SEGMENTS = 128;
+
+/**
+ * The stride of replay's spectra (its coherence bound, bands and report) over a recording of
+ * `frames`: every k-th of Welch's half-overlapping segments, k from 2 (segments that do not
+ * overlap) to 16, as large as leaves REPLAY_SPECTRUM_SEGMENTS of them. A long recording's
+ * spectra cost a sliver of its replay; a short one's average every segment it has.
+ */
+export function replaySpectrumStride(frames: number, segment: number): number {
+  return Math.max(2, Math.min(16, Math.floor((2 * frames) / segment / REPLAY_SPECTRUM_SEGMENTS)));
+}
+
 /** A Welch segment for a rate: about 1/8 s, a power of two from 256 to 8192 samples. */
 export function spectrumSegment(rate: number): number {
   return Math.min(8192, Math.max(256, 2 ** Math.ceil(Math.log2(rate / 8))));
@@ -36,7 +49,6 @@ export class WelchPsd {
   private readonly spectrum: Float64Array;
   private readonly sum: Float64Array;
   private fill = 0;
-  private seen = 0;
   segments = 0;
 
   /** stride k: average every k-th of the half-overlapping segments (2: segments that do not overlap). */
@@ -55,11 +67,24 @@ export class WelchPsd {
 
   push(x: Float64Array, n: number = x.length): void {
     const N = this.segmentLength;
+    if (this.stride > 1) {
+      // Strided segments do not overlap: a sample is kept only where a used segment lies.
+      const period = (this.stride * N) / 2;
+      for (let i = 0; i < n; i++) {
+        if (this.fill < N) {
+          const v = x[i]!;
+          this.segment[this.fill] = v - v === 0 ? v : 0; // non-finite: 0
+          if (this.fill === N - 1) this.accumulate();
+        }
+        if (++this.fill === period) this.fill = 0;
+      }
+      return;
+    }
     for (let i = 0; i < n; i++) {
       const v = x[i]!;
-      this.segment[this.fill++] = Number.isFinite(v) ? v : 0;
+      this.segment[this.fill++] = v - v === 0 ? v : 0; // non-finite: 0
       if (this.fill === N) {
-        if (this.seen++ % this.stride === 0) this.accumulate();
+        this.accumulate();
         this.segment.copyWithin(0, N / 2);
         this.fill = N / 2;
       }
@@ -102,7 +127,6 @@ export class WelchCross {
   private readonly sxyRe: Float64Array;
   private readonly sxyIm: Float64Array;
   private fill = 0;
-  private seen = 0;
   segments = 0;
 
   /** stride as in WelchPsd. */
@@ -129,13 +153,28 @@ export class WelchCross {
   /** Appends n samples of both signals (non-finite samples count as 0). */
   push(x: Float64Array, y: Float64Array, n: number): void {
     const N = this.segmentLength;
+    if (this.stride > 1) {
+      // Strided segments do not overlap: a sample is kept only where a used segment lies.
+      const period = (this.stride * N) / 2;
+      for (let i = 0; i < n; i++) {
+        if (this.fill < N) {
+          const a = x[i]!;
+          const b = y[i]!;
+          this.segX[this.fill] = a - a === 0 ? a : 0; // non-finite: 0
+          this.segY[this.fill] = b - b === 0 ? b : 0;
+          if (this.fill === N - 1) this.accumulate();
+        }
+        if (++this.fill === period) this.fill = 0;
+      }
+      return;
+    }
     for (let i = 0; i < n; i++) {
       const a = x[i]!;
       const b = y[i]!;
-      this.segX[this.fill] = Number.isFinite(a) ? a : 0;
-      this.segY[this.fill++] = Number.isFinite(b) ? b : 0;
+      this.segX[this.fill] = a - a === 0 ? a : 0; // non-finite: 0
+      this.segY[this.fill++] = b - b === 0 ? b : 0;
       if (this.fill === N) {
-        if (this.seen++ % this.stride === 0) this.accumulate();
+        this.accumulate();
         this.segX.copyWithin(0, N / 2);
         this.segY.copyWithin(0, N / 2);
         this.fill = N / 2;

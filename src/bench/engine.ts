@@ -1,6 +1,7 @@
 import type { Algorithm, Arithmetic } from '../dsp/types.js';
 import { GaussianNoise } from '../dsp/noise.js';
 import { loadConfig } from '../config/load.js';
+import type { Config } from '../config/schema.js';
 import { DualPathEngine } from '../engine/dualPath.js';
 import { engineSettingsOf } from '../engine/settings.js';
 
@@ -45,16 +46,9 @@ export function synthetic(n: number, taps: number): { x: Float64Array; d: Float6
   return { x, d };
 }
 
-/**
- * The whole dual path (adaptive kernel, clean kernel, statistics, supervisor) on synthetic data:
- * a warm-up of WARM_BLOCKS blocks of 4,096 samples (counted, not timed), then `seconds` timed.
- * Returns samples per second of wall time.
- */
-export function benchEngine(c: BenchCase): BenchResult {
-  const n = Math.round(c.seconds * c.rate);
-  const { x, d } = synthetic(BLOCK * 4, c.taps);
-  // The embedded default config, with the case's filter: the same settings a user would run.
-  const config = loadConfig(undefined, {
+/** The embedded default config, with the case's filter: the same settings a user would run. */
+export function benchConfig(c: BenchCase): Config {
+  return loadConfig(undefined, {
     filter: {
       algorithm: c.algorithm,
       taps: c.taps,
@@ -64,6 +58,17 @@ export function benchEngine(c: BenchCase): BenchResult {
       ...(c.constrained === undefined ? {} : { constrained: c.constrained }),
     },
   });
+}
+
+/**
+ * The whole dual path (adaptive kernel, clean kernel, statistics, supervisor) on synthetic data:
+ * a warm-up of WARM_BLOCKS blocks of 4,096 samples (counted, not timed), then `seconds` timed.
+ * Returns samples per second of wall time.
+ */
+export function benchEngine(c: BenchCase): BenchResult {
+  const n = Math.round(c.seconds * c.rate);
+  const { x, d } = synthetic(BLOCK * 4, c.taps);
+  const config = benchConfig(c);
   const channels = c.channels ?? 1;
   const engines = Array.from({ length: channels }, () => new DualPathEngine(engineSettingsOf(config, c.rate)));
   const clean = new Float64Array(BLOCK);

@@ -1,6 +1,6 @@
 import { renameSync, writeFileSync } from 'node:fs';
 import { join } from 'node:path';
-import { WelchCross, bandBounds, spectrumSegment } from '../analysis/welch.js';
+import { WelchCross, bandBounds, replaySpectrumStride, spectrumSegment } from '../analysis/welch.js';
 import { measurementChannels, referenceChannels, type Config } from '../config/schema.js';
 import { weightLimitOf } from '../dsp/kernels.js';
 import { INPUT_LIMIT } from '../dsp/level.js';
@@ -137,10 +137,11 @@ export function replay(opts: ReplayOptions): ReplayResult {
     const ref = refs[0]!;
     const des = measured.map(() => new Float64Array(block));
     const segment = spectrumSegment(rate);
-    // Spectra from segments that do not overlap (every second of Welch's half-overlapping ones):
-    // half the transforms, for a little more variance (README "summary.json", bands). One per
-    // measurement channel: the coherence bound is the reference's with that channel.
-    const crosses = measured.map(() => new WelchCross(segment, rate, 2));
+    // Spectra from segments that do not overlap, strided to leave a few hundred of them
+    // (replaySpectrumStride; README "summary.json", bands). One per measurement channel: the
+    // coherence bound is the reference's with that channel.
+    const stride = replaySpectrumStride(range.to - range.from, segment);
+    const crosses = measured.map(() => new WelchCross(segment, rate, stride));
     const truthReader = opts.truth === undefined ? null : WavReader.open(opts.truth);
     if (truthReader !== null) {
       if (truthReader.format.sampleRate !== rate || truthReader.frames < range.to) {
@@ -173,7 +174,7 @@ export function replay(opts: ReplayOptions): ReplayResult {
       const wavs = files ? new WavOutputs(join(dir, 'clean.wav'), join(dir, 'adaptive.wav'), rate, p.config.output.encoding) : null;
       const bands =
         p.config.output.signal === 'error'
-          ? new BandSink(segment, rate, truthReader === null ? null : truths[ci]!, p.config.filter.algorithm === 'pbfdaf' ? p.config.filter.blockSize : 0, block)
+          ? new BandSink(segment, stride, rate, truthReader === null ? null : truths[ci]!, p.config.filter.algorithm === 'pbfdaf' ? p.config.filter.blockSize : 0, block)
           : null;
       const sinks = [summary, ...(log && wavs ? [log, wavs] : []), ...(bands ? [bands] : [])];
       const run = new Run(settings, channel, sinks, block);

@@ -45,6 +45,8 @@ export class BandSink implements RunSink {
   private delayAt = 0;
   constructor(
     segment: number,
+    /** The replay's stride over Welch segments (replaySpectrumStride), as its cross-spectra. */
+    stride: number,
     private readonly rate: number,
     /** Where the replay reads each block of the truth recording before the block runs, or null. */
     private readonly truth: Float64Array | null,
@@ -52,11 +54,10 @@ export class BandSink implements RunSink {
     private readonly latency: number,
     maxBlock: number,
   ) {
-    // Every second segment, as the replay's cross-spectra (no overlap).
-    this.clean = new WelchPsd(segment, rate, 2);
-    this.desiredPsd = new WelchPsd(segment, rate, 2);
-    this.diff = truth ? new WelchPsd(segment, rate, 2) : null;
-    this.truthPsd = truth ? new WelchPsd(segment, rate, 2) : null;
+    this.clean = new WelchPsd(segment, rate, stride);
+    this.desiredPsd = new WelchPsd(segment, rate, stride);
+    this.diff = truth ? new WelchPsd(segment, rate, stride) : null;
+    this.truthPsd = truth ? new WelchPsd(segment, rate, stride) : null;
     this.delay = new Float64Array(Math.max(1, latency));
     this.scratch = new Float64Array(maxBlock);
     this.delayed = new Float64Array(maxBlock);

@@ -1,6 +1,6 @@
 import { spawnSync } from 'node:child_process';
 import { describe, expect, it } from 'vitest';
-import { WelchCross, bandBounds, octaveBands } from '../../src/analysis/welch.js';
+import { WelchCross, bandBounds, octaveBands, replaySpectrumStride } from '../../src/analysis/welch.js';
 import { bandLimited, through, white } from '../helpers/signals.js';
 
 // Magnitude-squared coherence and the cancellation it bounds, -10 log10(1 - C) (Bendat & Piersol,
@@ -31,6 +31,41 @@ print(json.dumps({'f':f.tolist(),'C':C.tolist()}))`;
     let worst = 0;
     for (let k = 1; k < ref.C.length - 1; k++) worst = Math.max(worst, Math.abs(ref.C[k]! - ours.coherence[k]!));
     expect(worst).toBeLessThan(1e-9);
+  });
+
+  it.skipIf(!scipy)("replay's strided spectra equal scipy on the segments they use laid end to end (noverlap=0)", () => {
+    const N = 512;
+    const stride = 3; // an odd one: the used segments sit one and a half segments apart
+    const c = new WelchCross(N, fs, stride);
+    // Fed in odd blocks: where a segment lies must not depend on them.
+    for (let at = 0; at < n; at += 777) c.push(x.subarray(at, Math.min(n, at + 777)), d.subarray(at, Math.min(n, at + 777)), Math.min(777, n - at));
+    const ours = c.result();
+    const period = (stride * N) / 2;
+    const keep = (v: Float64Array) => {
+      const out: number[] = [];
+      for (let s = 0; s + N <= v.length; s += period) out.push(...v.subarray(s, s + N));
+      return out;
+    };
+    const script = `import json,sys,numpy as np; from scipy.signal import coherence
+v=json.load(sys.stdin); f,C=coherence(np.array(v['x']),np.array(v['d']),fs=${fs},window='hann',nperseg=${N},noverlap=0,detrend=False)
+print(json.dumps({'C':C.tolist()}))`;
+    const r = spawnSync('python3', ['-c', script], { input: JSON.stringify({ x: keep(x), d: keep(d) }), encoding: 'utf8', maxBuffer: 1 << 26 });
+    expect(r.status, r.stderr).toBe(0);
+    const ref = JSON.parse(r.stdout) as { C: number[] };
+    expect(c.segments).toBe(keep(x).length / N);
+    let worst = 0;
+    for (let k = 1; k < ref.C.length - 1; k++) worst = Math.max(worst, Math.abs(ref.C[k]! - ours.coherence[k]!));
+    expect(worst).toBeLessThan(1e-9);
+  });
+
+  it("replay's stride leaves at least 128 segments where it can, never overlapping ones, at most every 16th", () => {
+    const N = 2048;
+    expect(replaySpectrumStride(100 * N, N)).toBe(2); // 200 half-overlapping segments: every other
+    expect(replaySpectrumStride(40 * 16000, N)).toBe(4); // the demo: 625 of them, every 4th
+    const hour = 3600 * 48000;
+    expect(replaySpectrumStride(hour, 8192)).toBe(16);
+    const k = replaySpectrumStride(300 * 48000, 8192);
+    expect(Math.floor((2 * 300 * 48000) / 8192 / k)).toBeGreaterThanOrEqual(128);
   });
 
   it('a linear path with independent white noise: the band bound is 10 log10(1 + SNR) of that band', () => {

@@ -68,6 +68,18 @@ describe('tapwarden bench', () => {
     expect(cli(['bench', '--channels', '0']).stderr).toMatch(/--channels 0 is not allowed; allowed: a positive integer/);
   });
 
+  it('--replay pairs each engine-only run with a replay of the same length and reports the ratio of the pairs', () => {
+    const r = cli(['bench', '--taps', '64', '--seconds', '0.5', '--repeat', '2', '--replay', '--json']);
+    expect(r.status, r.stderr).toBe(0);
+    const row = JSON.parse(r.stdout);
+    expect(row.replayRealtimeFactor).toBeGreaterThan(0);
+    // The ratio is the median of per-pair ratios: it lies between the two pairs' ratios, so it is
+    // positive and finite whatever the machine does (no speed is asserted).
+    expect(Number.isFinite(row.ratioEngineToReplay) && row.ratioEngineToReplay > 0).toBe(true);
+    expect(cli(['bench', '--replay']).stderr).toMatch(/--replay is for one case on one channel/);
+    expect(cli(['bench', '--taps', '64', '--channels', '2', '--replay']).stderr).toMatch(/--replay is for one case on one channel/);
+  });
+
   it('bad options: one line naming what is allowed', () => {
     const r = cli(['bench', '--arithmetic', 'q7']);
     expect(r.status).toBe(2);

@@ -1,4 +1,5 @@
 import { benchEngine, type BenchCase } from '../../bench/engine.js';
+import { benchReplay } from '../../bench/replay.js';
 import { PORT_FLAGS, runPortReference } from '../../bench/portReference.js';
 import { C_FLAGS, buildCReference, numpyAvailable, runCReference, runNumpyReference, type ReferenceResult } from '../../bench/references.js';
 import { PBFDAF_BLOCK_SIZES } from '../../config/schema.js';
@@ -50,7 +51,7 @@ function blockFor(taps: number): number | null {
 export const bench: Command = {
   summary: "measure the engine's throughput on this machine, beside a C reference",
   usage: `Usage: tapwarden bench [--algorithm A] [--taps N] [--arithmetic X] [--block-size N] [--constrained true|false]
-                       [--channels N] [--rate HZ] [--seconds S] [--repeat N] [--json]
+                       [--channels N] [--replay] [--rate HZ] [--seconds S] [--repeat N] [--json]
 
 Runs the whole dual path (adaptive and clean filters, statistics, supervisor) on synthetic data
 and reports samples per second and the real-time factor at the given rate. With no algorithm,
@@ -70,6 +71,9 @@ Options:
   --repeat N      measure each row N times; figures are medians, with the range (default 1)
   --channels N    run N dual paths (N measurement channels) on the one core: x real time is for
                   all of them together (above 1: the core keeps up with N); no references then
+  --replay        also replay a synthetic recording of the same length end to end (decode,
+                  outputs, decision log, spectra, summary) with the same config, each repeat
+                  beside the engine-only run, and print the engine-only / replay ratio
   --rate HZ       sample rate for the real-time factor (default 48000)
   --seconds S     seconds of audio per measurement (default 3)
   --json          JSON on stdout (an object, or an array for the table)
@@ -85,6 +89,7 @@ Options:
     repeat: { type: 'string' },
     channels: { type: 'string' },
     json: { type: 'boolean' },
+    replay: { type: 'boolean' },
   },
   positionals: [0, 0],
   run(values) {
@@ -99,6 +104,10 @@ Options:
     const blockSize = blockArg === undefined ? undefined : positive('block-size', blockArg, 0, true);
     const constrainedArg = choice<'true' | 'false'>('constrained', values['constrained'] as string | undefined, ['true', 'false']);
     const single = algorithm !== undefined || arithmetic !== undefined || tapsArg !== undefined;
+    const withReplay = values['replay'] === true;
+    if (withReplay && (!single || channels > 1)) {
+      throw new TapwardenError('TW_ERR_USAGE', { detail: 'bench: --replay is for one case on one channel; allowed: with --algorithm, --taps or --arithmetic, and no --channels' });
+    }
     const taps = tapsArg === undefined ? DEFAULT_TAPS : [positive('taps', tapsArg, 0, true)];
     const rows: Array<Pick<BenchCase, 'algorithm' | 'arithmetic' | 'constrained'>> = single
       ? [{ algorithm: algorithm ?? 'nlms', arithmetic: arithmetic ?? 'float64', ...(constrainedArg === undefined ? {} : { constrained: constrainedArg === 'true' }) }]
@@ -128,7 +137,14 @@ Options:
     for (const row of rows) {
       for (const L of taps) {
         const block = blockSize ?? blockFor(L);
-        const runs = Array.from({ length: repeat }, () => benchEngine({ ...row, taps: L, rate, seconds, channels, blockSize: block ?? 256 }));
+        const benchCase = { ...row, taps: L, rate, seconds, channels, blockSize: block ?? 256 };
+        // With --replay, each engine-only run has its replay beside it: the machine's drift hits both.
+        const replays: number[] = [];
+        const runs = Array.from({ length: repeat }, () => {
+          const e = benchEngine(benchCase);
+          if (withReplay) replays.push(benchReplay(benchCase).realtimeFactor);
+          return e;
+        });
         const speeds = runs.map((x) => x.samplesPerSecond);
         const r = { ...runs[0]!, samplesPerSecond: median(speeds), realtimeFactor: median(speeds) / rate };
         let cRef: ReferenceResult | null = null;
@@ -168,6 +184,7 @@ Options:
           ...(cRef ? { cSamplesPerSecond: Math.round(cRef.samplesPerSecond), cRealtimeFactor: +cRef.realtimeFactor.toFixed(2), ratioToC: +(r.samplesPerSecond / cRef.samplesPerSecond).toFixed(3) } : {}),
           ...(cSkipped ? { cSkipped } : {}),
           ...(npRef ? { numpyRealtimeFactor: +npRef.realtimeFactor.toFixed(2), ratioToNumpy: +(r.samplesPerSecond / npRef.samplesPerSecond).toFixed(1) } : {}),
+          ...(withReplay ? { replayRealtimeFactor: +median(replays).toFixed(2), ratioEngineToReplay: +median(runs.map((e, i) => e.realtimeFactor / replays[i]!)).toFixed(3) } : {}),
         };
         results.push(out);
         if (!json) {
@@ -176,6 +193,9 @@ Options:
             `${name.padEnd(22)}${r.arithmetic.padEnd(9)}${String(L).padStart(6)}${String(out.samplesPerSecond).padStart(13)}${f(out.realtimeFactor, 1).padStart(13)}` +
               `${f(out.cRealtimeFactor, 1).padStart(9)}${f(out.ratioToC, 2).padStart(7)}${f(out.numpyRealtimeFactor, 1).padStart(12)}${f(out.ratioToNumpy, 1).padStart(10)}\n`,
           );
+          if (out.replayRealtimeFactor !== undefined) {
+            process.stdout.write(`replay end to end: ${out.replayRealtimeFactor.toFixed(1)} x real time; engine only / replay = ${out.ratioEngineToReplay!.toFixed(2)}${repeat > 1 ? ' (median of the paired runs)' : ''}\n`);
+          }
         }
       }
     }

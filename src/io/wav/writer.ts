@@ -12,6 +12,8 @@ const DATA_AT = FACT_AT + 12;
 /** A RIFF size field holds at most this; a larger file becomes RF64 (EBU Tech 3306). */
 const RIFF_MAX = 0xffffffff;
 const LITTLE_ENDIAN = endianness() === 'LE';
+/** Encoded samples are written out this many bytes at a time (or a larger block at once). */
+const STAGE_BYTES = 1 << 20;
 
 export interface WavWriterOptions {
   /** Write RF64 once the RIFF size would pass this many bytes (default: the 32-bit limit; lower in tests). */
@@ -41,6 +43,8 @@ export class WavWriter {
   private s16 = new Int16Array(0);
   private view = new DataView(this.bytes.buffer);
   private dataBytes = 0;
+  /** Encoded bytes waiting in `bytes` to be written. */
+  private staged = 0;
   private framesWritten = 0;
 
   constructor(
@@ -106,35 +110,43 @@ export class WavWriter {
     return 0;
   }
 
-  /** Appends `frames` frames; chans[c][i] is channel c of frame i. */
+  /**
+   * Appends `frames` frames; chans[c][i] is channel c of frame i. The encoded frames are staged
+   * and written STAGE_BYTES at a time (a write per block would be a system call per block).
+   */
   write(chans: readonly Float64Array[], frames: number): void {
     const ch = this.channels;
     const bps = this.bytesPerSample;
     const need = frames * ch * bps;
-    if (this.bytes.length < need) this.grow(need);
+    if (this.staged + need > this.bytes.length) {
+      this.flush();
+      if (this.bytes.length < need) this.grow(need);
+    }
+    // Staged bytes are whole frames, so the offset is a multiple of every sample size.
+    const at = this.staged;
     if (this.encoding === 'float64') {
       const v = this.view;
       for (let c = 0; c < ch; c++) {
         const src = chans[c]!;
-        for (let i = 0, p = c * 8; i < frames; i++, p += ch * 8) v.setFloat64(p, src[i]!, true);
+        for (let i = 0, p = at + c * 8; i < frames; i++, p += ch * 8) v.setFloat64(p, src[i]!, true);
       }
     } else if (this.encoding === 'float32' && LITTLE_ENDIAN) {
       const f = this.f32;
       for (let c = 0; c < ch; c++) {
         const src = chans[c]!;
-        for (let i = 0, p = c; i < frames; i++, p += ch) f[p] = this.finite(src[i]!);
+        for (let i = 0, p = at / 4 + c; i < frames; i++, p += ch) f[p] = this.finite(src[i]!);
       }
     } else if (this.encoding === 'pcm16' && LITTLE_ENDIAN) {
       const s16 = this.s16;
       for (let c = 0; c < ch; c++) {
         const src = chans[c]!;
-        for (let i = 0, p = c; i < frames; i++, p += ch) s16[p] = this.pcm(src[i]!, 32768);
+        for (let i = 0, p = at / 2 + c; i < frames; i++, p += ch) s16[p] = this.pcm(src[i]!, 32768);
       }
     } else {
       const v = this.view;
       for (let c = 0; c < ch; c++) {
         const src = chans[c]!;
-        for (let i = 0, p = c * bps; i < frames; i++, p += ch * bps) {
+        for (let i = 0, p = at + c * bps; i < frames; i++, p += ch * bps) {
           if (this.encoding === 'float32') v.setFloat32(p, this.finite(src[i]!), true);
           else if (bps === 2) v.setInt16(p, this.pcm(src[i]!, 32768), true);
           else {
@@ -146,18 +158,25 @@ export class WavWriter {
         }
       }
     }
-    try {
-      writeSync(this.fd, this.bytes, 0, need);
-    } catch (err) {
-      throw new TapwardenError('TW_ERR_OUTPUT_WRITE', { file: this.file, reason: oneLine(err) });
-    }
+    this.staged += need;
     this.dataBytes += need;
     this.framesWritten += frames;
   }
 
+  /** Writes the staged frames out. */
+  private flush(): void {
+    if (this.staged === 0) return;
+    try {
+      writeSync(this.fd, this.bytes, 0, this.staged);
+    } catch (err) {
+      throw new TapwardenError('TW_ERR_OUTPUT_WRITE', { file: this.file, reason: oneLine(err) });
+    }
+    this.staged = 0;
+  }
+
   private grow(need: number): void {
     // A multiple of 24 bytes, so that the 2-, 4- and 8-byte views cover it exactly.
-    const size = Math.ceil(Math.max(need, 2 * this.bytes.length) / 24) * 24;
+    const size = Math.ceil(Math.max(need, STAGE_BYTES, 2 * this.bytes.length) / 24) * 24;
     const buf = new ArrayBuffer(size);
     this.bytes = new Uint8Array(buf);
     this.f32 = new Float32Array(buf);
@@ -177,6 +196,7 @@ export class WavWriter {
 
   /** Pads, patches the sizes (RF64 when they do not fit 32 bits) and closes. */
   close(): void {
+    this.flush();
     try {
       if (this.dataBytes % 2 === 1) writeSync(this.fd, Buffer.alloc(1));
       writeSync(this.fd, this.header(), 0, HEADER_BYTES, 0);
