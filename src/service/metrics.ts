@@ -94,7 +94,9 @@ export class ServiceMetrics implements RunSink {
 
   constructor(telemetry: Telemetry, measured: readonly number[]) {
     this.channels = measured.map(String);
-    collectDefaultMetrics({ register: this.registry });
+    // The event-loop delay histogram samples every 100 ms (the default 10 ms wakes the main thread
+    // a hundred times a second for it).
+    collectDefaultMetrics({ register: this.registry, eventLoopMonitoringPrecision: 100 });
     // prom-client exports these gauges with a `_total` suffix, which Prometheus reserves for
     // counters (promtool check metrics flags them); their *_total-free siblings stay.
     for (const name of ['nodejs_active_handles_total', 'nodejs_active_requests_total', 'nodejs_active_resources_total']) {

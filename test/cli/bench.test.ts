@@ -80,6 +80,17 @@ describe('tapwarden bench', () => {
     expect(cli(['bench', '--taps', '64', '--channels', '2', '--replay']).stderr).toMatch(/--replay is for one case on one channel/);
   });
 
+  it('--serve runs the service paced in real time and reads the CPU time the whole process used', () => {
+    const r = cli(['bench', '--taps', '64', '--seconds', '2', '--serve', '--json']);
+    expect(r.status, r.stderr).toBe(0);
+    const row = JSON.parse(r.stdout);
+    // /proc/PID/stat is the operating system's own account (proc(5)); no figure is asserted.
+    expect(row.serveSkipped).toBeNull();
+    expect(row.serveCores).toBeGreaterThan(0);
+    expect(row.serveCores).toBeLessThan(2); // two cores: the process cannot have used more
+    expect(cli(['bench', '--serve']).stderr).toMatch(/--serve is for one case on one channel/);
+  });
+
   it('bad options: one line naming what is allowed', () => {
     const r = cli(['bench', '--arithmetic', 'q7']);
     expect(r.status).toBe(2);

@@ -1,5 +1,6 @@
 import { benchEngine, type BenchCase } from '../../bench/engine.js';
 import { benchReplay } from '../../bench/replay.js';
+import { benchServe } from '../../bench/serve.js';
 import { PORT_FLAGS, runPortReference } from '../../bench/portReference.js';
 import { C_FLAGS, buildCReference, numpyAvailable, runCReference, runNumpyReference, type ReferenceResult } from '../../bench/references.js';
 import { PBFDAF_BLOCK_SIZES } from '../../config/schema.js';
@@ -51,7 +52,7 @@ function blockFor(taps: number): number | null {
 export const bench: Command = {
   summary: "measure the engine's throughput on this machine, beside a C reference",
   usage: `Usage: tapwarden bench [--algorithm A] [--taps N] [--arithmetic X] [--block-size N] [--constrained true|false]
-                       [--channels N] [--replay] [--rate HZ] [--seconds S] [--repeat N] [--json]
+                       [--channels N] [--replay] [--serve] [--rate HZ] [--seconds S] [--repeat N] [--json]
 
 Runs the whole dual path (adaptive and clean filters, statistics, supervisor) on synthetic data
 and reports samples per second and the real-time factor at the given rate. With no algorithm,
@@ -74,6 +75,9 @@ Options:
   --replay        also replay a synthetic recording of the same length end to end (decode,
                   outputs, decision log, spectra, summary) with the same config, each repeat
                   beside the engine-only run, and print the engine-only / replay ratio
+  --serve         also run 'tapwarden serve' on a looped synthetic recording at --rate, paced in
+                  real time, with one GET /metrics a second, and print the cores the whole
+                  process used over --seconds (after 3 s to settle; Linux /proc)
   --rate HZ       sample rate for the real-time factor (default 48000)
   --seconds S     seconds of audio per measurement (default 3)
   --json          JSON on stdout (an object, or an array for the table)
@@ -90,9 +94,10 @@ Options:
     channels: { type: 'string' },
     json: { type: 'boolean' },
     replay: { type: 'boolean' },
+    serve: { type: 'boolean' },
   },
   positionals: [0, 0],
-  run(values) {
+  async run(values) {
     const algorithm = choice<Algorithm>('algorithm', values['algorithm'] as string | undefined, ALGORITHMS);
     const arithmetic = choice<Arithmetic>('arithmetic', values['arithmetic'] as string | undefined, ARITHMETICS);
     const tapsArg = values['taps'] as string | undefined;
@@ -105,8 +110,11 @@ Options:
     const constrainedArg = choice<'true' | 'false'>('constrained', values['constrained'] as string | undefined, ['true', 'false']);
     const single = algorithm !== undefined || arithmetic !== undefined || tapsArg !== undefined;
     const withReplay = values['replay'] === true;
-    if (withReplay && (!single || channels > 1)) {
-      throw new TapwardenError('TW_ERR_USAGE', { detail: 'bench: --replay is for one case on one channel; allowed: with --algorithm, --taps or --arithmetic, and no --channels' });
+    const withServe = values['serve'] === true;
+    for (const [on, flag] of [[withReplay, '--replay'], [withServe, '--serve']] as const) {
+      if (on && (!single || channels > 1)) {
+        throw new TapwardenError('TW_ERR_USAGE', { detail: `bench: ${flag} is for one case on one channel; allowed: with --algorithm, --taps or --arithmetic, and no --channels` });
+      }
     }
     const taps = tapsArg === undefined ? DEFAULT_TAPS : [positive('taps', tapsArg, 0, true)];
     const rows: Array<Pick<BenchCase, 'algorithm' | 'arithmetic' | 'constrained'>> = single
@@ -146,6 +154,7 @@ Options:
           return e;
         });
         const speeds = runs.map((x) => x.samplesPerSecond);
+        const served = withServe ? await benchServe(benchCase) : null;
         const r = { ...runs[0]!, samplesPerSecond: median(speeds), realtimeFactor: median(speeds) / rate };
         let cRef: ReferenceResult | null = null;
         let npRef: ReferenceResult | null = null;
@@ -185,6 +194,7 @@ Options:
           ...(cSkipped ? { cSkipped } : {}),
           ...(npRef ? { numpyRealtimeFactor: +npRef.realtimeFactor.toFixed(2), ratioToNumpy: +(r.samplesPerSecond / npRef.samplesPerSecond).toFixed(1) } : {}),
           ...(withReplay ? { replayRealtimeFactor: +median(replays).toFixed(2), ratioEngineToReplay: +median(runs.map((e, i) => e.realtimeFactor / replays[i]!)).toFixed(3) } : {}),
+          ...(served === null ? {} : { serveCores: 'cores' in served ? +served.cores.toFixed(4) : null, serveSkipped: 'skipped' in served ? served.skipped : null }),
         };
         results.push(out);
         if (!json) {
@@ -193,6 +203,8 @@ Options:
             `${name.padEnd(22)}${r.arithmetic.padEnd(9)}${String(L).padStart(6)}${String(out.samplesPerSecond).padStart(13)}${f(out.realtimeFactor, 1).padStart(13)}` +
               `${f(out.cRealtimeFactor, 1).padStart(9)}${f(out.ratioToC, 2).padStart(7)}${f(out.numpyRealtimeFactor, 1).padStart(12)}${f(out.ratioToNumpy, 1).padStart(10)}\n`,
           );
+          if (typeof out.serveCores === 'number') process.stdout.write(`serve at ${rate} Hz, one scrape a second: ${out.serveCores.toFixed(3)} core (the whole process, over ${seconds} s)\n`);
+          if (typeof out.serveSkipped === 'string') process.stdout.write(`serve not measured: ${out.serveSkipped}\n`);
           if (out.replayRealtimeFactor !== undefined) {
             process.stdout.write(`replay end to end: ${out.replayRealtimeFactor.toFixed(1)} x real time; engine only / replay = ${out.ratioEngineToReplay!.toFixed(2)}${repeat > 1 ? ' (median of the paired runs)' : ''}\n`);
           }

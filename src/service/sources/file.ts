@@ -3,6 +3,12 @@ import { WavReader } from '../../io/wav/reader.js';
 import type { Telemetry } from '../telemetry.js';
 import type { SourceCallbacks, StreamSource } from './source.js';
 
+/**
+ * How often a paced source wakes at most: the blocks that came due meanwhile go out together,
+ * as a capture device's driver hands over its periods (two wake-ups per 256-frame block at 48
+ * kHz cost the worker several times the engine at 256 taps: README "Sizing a rig").
+ */
+const PACE_MS = 20;
 /** Wall time a free-running source works before it lets the worker's messages through. */
 const FREE_SLICE_MS = 5;
 
@@ -85,7 +91,7 @@ export class FileSource implements StreamSource {
     this.telemetry.set('queueDepth', Math.max(0, behind));
     for (let b = 0; b < behind; b++) if (!this.emitBlock()) return;
     this.telemetry.set('queueDepth', 0);
-    this.schedule(Math.max(1, (500 * n) / this.sampleRate));
+    this.schedule(Math.max(PACE_MS, (500 * n) / this.sampleRate));
   };
 
   /** Reads `frames` frames past (looping as the stream would) without handing them over. */
