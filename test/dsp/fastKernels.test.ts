@@ -64,6 +64,22 @@ describe('fast kernels reproduce the reference kernels', () => {
             noise: variant !== 0,
           });
 
+  // Without noise the q15 update is fused with the next output and runs four taps a step.
+  it.each([
+    [13, 'nearest', null, 0, false],
+    [16, 'truncate', 9, 0, false],
+    [7, 'nearest', null, 0.02, false],
+    [16, 'nearest', null, 0, true],
+  ] as const)('bit for bit where weights saturate: q15 LMS, a step far too large, %i taps, %s, leakShift %s, leak %s, noise %s', (taps, rounding, leakShift, leak, withNoise) => {
+    const s = spec({ arithmetic: 'q15', algorithm: 'lms', rounding, taps, step: 40, leakShift, leak });
+    const ref = drive(new FixedAdaptiveKernel(s), withNoise);
+    const fast = drive(new WasmAdaptiveKernel(s), withNoise);
+    expect(ref.sat.weights).toBeGreaterThan(10);
+    expect(fast.sat).toEqual(ref.sat);
+    expect(fast.w).toEqual(ref.w);
+    expect(bits(fast.e).equals(bits(ref.e))).toBe(true);
+  });
+
   for (const c of fixedCases) {
     it(`bit for bit: ${c.arithmetic} ${c.algorithm} ${c.rounding}, ${c.taps} taps, leak ${c.leak}, leakShift ${c.leakShift}, mean removal ${c.meanRemovalEvery}, noise ${c.noise}`, () => {
       const s = spec(c);

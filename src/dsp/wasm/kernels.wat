@@ -1,5 +1,5 @@
-;; tapwarden's fast kernels, hand-written WebAssembly text (SIMD for float64, scalar i64 for
-;; fixed point). Built to dist/wasm/kernels.wasm by scripts/build-wasm.mjs (wabt).
+;; tapwarden's fast kernels, hand-written WebAssembly text (SIMD for float64, float32 and q15's
+;; update and FIR sum in i32x4 lanes; scalar i64 for q31). Built to dist/wasm/kernels.wasm by scripts/build-wasm.mjs (wabt).
 ;;
 ;; One instance serves one filter: its memory holds the weights, the doubled delay lines and the
 ;; sample buffers of one chunk; the host (src/dsp/wasm/fastKernels.ts) copies samples in and out
@@ -706,10 +706,22 @@
   ;; 62-bit products are accumulated split at bit 16, so the sum is exact for any length.
   (func $dotq (param $o i32) (param $pos i32) (result i64)
     (local $k i32) (local $px i32) (local $p i64) (local $hi i64) (local $lo i64) (local $pw i32) (local $end i32)
+    (local $acc v128) (local $sum v128)
     (local.set $px (i32.add (local.get $o) (i32.shl (local.get $pos) (i32.const 2))))
     (if (i64.eq (global.get $f) (i64.const 15)) (then
-      ;; q15: products below 2^30, a plain 64-bit sum is exact
+      ;; q15: every product is below 2^30 in magnitude, so i32x4.mul forms four of them exactly,
+      ;; summed widened to i64 (integer sums are exact in any order: the scalar sum bit for bit).
+      ;; Four taps a step, then the tail one by one.
       (local.set $pw (global.get $oW))
+      (local.set $end (i32.add (global.get $oW) (i32.shl (i32.and (global.get $L) (i32.const -4)) (i32.const 2))))
+      (block $done4 (loop $l4
+        (br_if $done4 (i32.ge_u (local.get $pw) (local.get $end)))
+        (local.set $acc (i32x4.mul (v128.load (local.get $pw)) (v128.load (local.get $px))))
+        (local.set $sum (i64x2.add (local.get $sum) (i64x2.add (i64x2.extend_low_i32x4_s (local.get $acc)) (i64x2.extend_high_i32x4_s (local.get $acc)))))
+        (local.set $pw (i32.add (local.get $pw) (i32.const 16)))
+        (local.set $px (i32.add (local.get $px) (i32.const 16)))
+        (br $l4)))
+      (local.set $hi (i64.add (i64x2.extract_lane 0 (local.get $sum)) (i64x2.extract_lane 1 (local.get $sum))))
       (local.set $end (i32.add (global.get $oW) (i32.shl (global.get $L) (i32.const 2))))
       (block $done (loop $l
         (br_if $done (i32.ge_u (local.get $pw) (local.get $end)))
@@ -771,6 +783,8 @@
     (local $px i32) (local $pw i32) (local $end i32) (local $w i64) (local $v i64) (local $p i64)
     (local $hi i64) (local $lo i64) (local $half i64) (local $f i64) (local $max i64) (local $min i64)
     (local $cnt i32) (local $c1 i32) (local $c2 i32) (local $q15 i32) (local $mask i64)
+    (local $vg v128) (local $vlf v128) (local $vhalf v128) (local $vmask v128) (local $vmax v128) (local $vmin v128)
+    (local $vw v128) (local $vv v128) (local $vp v128) (local $vsum v128) (local $vcnt v128) (local $sh32 i32)
     (local.set $f (global.get $f))
     (local.set $half (i64.shr_u (i64.shl (global.get $rn) (local.get $f)) (i64.const 1)))
     (local.set $max (global.get $qmax))
@@ -780,6 +794,39 @@
     (if (i64.lt_s (local.get $sh) (i64.const 0)) (then (local.set $sh (i64.const 0))))
     (local.set $px (i32.add (local.get $o) (i32.shl (local.get $pos) (i32.const 2))))
     (local.set $pw (global.get $oW))
+    (if (local.get $q15) (then
+      ;; q15, four taps a step in i32x4: every term fits 32 bits (|g x|, |lf w| <= 2^30, |v| < 2^31)
+      ;; and integer arithmetic is exact, so each lane is the scalar sequence below bit for bit;
+      ;; with no leak, lf = 0 and the mask clear the leak terms to exactly 0. Saturations are
+      ;; counted per lane (a compare is -1 where it holds), the products summed widened to i64.
+      (local.set $end (i32.add (global.get $oW) (i32.shl (i32.and (global.get $L) (i32.const -4)) (i32.const 2))))
+      (local.set $vg (i32x4.splat (i32.wrap_i64 (local.get $g))))
+      (local.set $vlf (i32x4.splat (i32.wrap_i64 (local.get $lf))))
+      (local.set $vhalf (i32x4.splat (i32.wrap_i64 (local.get $half))))
+      (local.set $vmask (i32x4.splat (i32.wrap_i64 (local.get $mask))))
+      (local.set $vmax (i32x4.splat (i32.wrap_i64 (local.get $max))))
+      (local.set $vmin (i32x4.splat (i32.wrap_i64 (local.get $min))))
+      (local.set $sh32 (i32.wrap_i64 (local.get $sh)))
+      (block $done4 (loop $l4
+        (br_if $done4 (i32.ge_u (local.get $pw) (local.get $end)))
+        (local.set $vw (v128.load (local.get $pw)))
+        (local.set $vv (i32x4.add (local.get $vw)
+          (i32x4.shr_s (i32x4.add (i32x4.mul (local.get $vg) (v128.load offset=4 (local.get $px))) (local.get $vhalf)) (i32.const 15))))
+        (local.set $vv (i32x4.sub (i32x4.sub (local.get $vv)
+            (i32x4.shr_s (i32x4.add (i32x4.mul (local.get $vlf) (local.get $vw)) (local.get $vhalf)) (i32.const 15)))
+          (v128.and (i32x4.shr_s (local.get $vw) (local.get $sh32)) (local.get $vmask))))
+        (local.set $vcnt (i32x4.sub (i32x4.sub (local.get $vcnt) (i32x4.gt_s (local.get $vv) (local.get $vmax))) (i32x4.lt_s (local.get $vv) (local.get $vmin))))
+        (local.set $vv (i32x4.max_s (i32x4.min_s (local.get $vv) (local.get $vmax)) (local.get $vmin)))
+        (v128.store (local.get $pw) (local.get $vv))
+        (local.set $vp (i32x4.mul (local.get $vv) (v128.load (local.get $px))))
+        (local.set $vsum (i64x2.add (local.get $vsum) (i64x2.add (i64x2.extend_low_i32x4_s (local.get $vp)) (i64x2.extend_high_i32x4_s (local.get $vp)))))
+        (local.set $pw (i32.add (local.get $pw) (i32.const 16)))
+        (local.set $px (i32.add (local.get $px) (i32.const 16)))
+        (br $l4)))
+      (local.set $hi (i64.add (i64x2.extract_lane 0 (local.get $vsum)) (i64x2.extract_lane 1 (local.get $vsum))))
+      (local.set $cnt (i32.add (i32.add (i32x4.extract_lane 0 (local.get $vcnt)) (i32x4.extract_lane 1 (local.get $vcnt)))
+                               (i32.add (i32x4.extract_lane 2 (local.get $vcnt)) (i32x4.extract_lane 3 (local.get $vcnt)))))))
+    ;; The taps left (q15: the last L mod 4; q31: all of them), one by one.
     (local.set $end (i32.add (global.get $oW) (i32.shl (global.get $L) (i32.const 2))))
     (block $done (loop $l
       (br_if $done (i32.ge_u (local.get $pw) (local.get $end)))
