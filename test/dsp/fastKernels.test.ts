@@ -64,14 +64,18 @@ describe('fast kernels reproduce the reference kernels', () => {
             noise: variant !== 0,
           });
 
-  // Without noise the q15 update is fused with the next output and runs four taps a step.
+  // Without noise the update is fused with the next output (q15's in SIMD lanes, four taps a
+  // step, the odd taps one by one).
   it.each([
-    [13, 'nearest', null, 0, false],
-    [16, 'truncate', 9, 0, false],
-    [7, 'nearest', null, 0.02, false],
-    [16, 'nearest', null, 0, true],
-  ] as const)('bit for bit where weights saturate: q15 LMS, a step far too large, %i taps, %s, leakShift %s, leak %s, noise %s', (taps, rounding, leakShift, leak, withNoise) => {
-    const s = spec({ arithmetic: 'q15', algorithm: 'lms', rounding, taps, step: 40, leakShift, leak });
+    ['q15', 13, 'nearest', null, 0, false],
+    ['q15', 16, 'truncate', 9, 0, false],
+    ['q15', 7, 'nearest', null, 0.02, false],
+    ['q15', 16, 'nearest', null, 0, true],
+    ['q31', 13, 'nearest', null, 0, false],
+    ['q31', 16, 'truncate', 9, 0, false],
+    ['q31', 7, 'nearest', null, 0.02, false],
+  ] as const)('bit for bit where weights saturate: %s LMS, a step far too large, %i taps, %s, leakShift %s, leak %s, noise %s', (arithmetic, taps, rounding, leakShift, leak, withNoise) => {
+    const s = spec({ arithmetic, algorithm: 'lms', rounding, taps, step: 40, leakShift, leak });
     const ref = drive(new FixedAdaptiveKernel(s), withNoise);
     const fast = drive(new WasmAdaptiveKernel(s), withNoise);
     expect(ref.sat.weights).toBeGreaterThan(10);
