@@ -105,6 +105,21 @@ describe('captured episodes', () => {
     const notes = files.map((f) => JSON.parse(readFileSync(join(caps, f.replace(/\.wav$/, '.json')), 'utf8')).causes[0].note);
     expect(notes).toEqual(['clamp check 2', 'clamp check 3']);
 
+    // A capture that cannot be written (capture.dir is a file) is logged and counted; the service goes on.
+    const blocked = join(dir, 'not-a-dir');
+    writeFileSync(blocked, 'x');
+    const bad = await serveWith(dir, `capture:\n  dir: ${blocked}\n  secondsBefore: 0.5\n  secondsAfter: 0\n  triggers: [mark]\n`, { TAPWARDEN_CONTROL_TOKEN: TOKEN });
+    try {
+      await until(async () => (await bad.metric('tapwarden_stream_seconds')) > 1, 10_000, 'a second of stream');
+      const r = await bad.get('/api/control/mark', { method: 'POST', headers: { authorization: `Bearer ${TOKEN}` } });
+      expect(r.status).toBe(200);
+      await until(async () => (await bad.metric('tapwarden_capture_write_failures_total')) === 1, 10_000, 'the failure counted');
+      expect(bad.logs.some((l) => String(l['msg']).startsWith('episode not captured: ') && l['code'] === 'TW_ERR_OUTPUT_WRITE')).toBe(true);
+      expect((await bad.get('/readyz')).status).toBe(200);
+    } finally {
+      await bad.stop();
+    }
+
     const off = await serveWith(dir, '', { TAPWARDEN_CONTROL_TOKEN: TOKEN });
     try {
       const r = await off.get('/api/control/mark', { method: 'POST', headers: { authorization: `Bearer ${TOKEN}` } });
