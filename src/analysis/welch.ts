@@ -218,6 +218,186 @@ export class WelchCross {
   }
 }
 
+/**
+ * The multiple coherence of a measurement with K references over strided, non-overlapping Welch
+ * segments (as replay's spectra): gamma^2(f) = Sxy^H Sxx^-1 Sxy / Syy, Sxx the references' K x K
+ * cross-spectral matrix and Sxy their cross-spectra with the measurement (Bendat & Piersol,
+ * Random Data, 4th ed., multiple-input systems, chapter 7). 1 - gamma^2 is the smallest share of
+ * the measurement's power at f that linear filters of all K references together can leave, so it
+ * bounds a multiple-input canceller as the ordinary coherence bounds a one-reference one; with
+ * one reference it is the ordinary coherence.
+ */
+export class WelchMultiCross {
+  private readonly fft: FFT;
+  private readonly window: Float64Array;
+  private readonly windowPower: number;
+  private readonly K: number;
+  private readonly segX: Float64Array[];
+  private readonly segY: Float64Array;
+  private readonly frame: Float64Array;
+  private readonly specX: Float64Array[];
+  private readonly specY: Float64Array;
+  /** Per bin: Sxx (K x K, row-major, re and im apart), Sxy (K), Syy. */
+  private readonly sxxRe: Float64Array;
+  private readonly sxxIm: Float64Array;
+  private readonly sxyRe: Float64Array;
+  private readonly sxyIm: Float64Array;
+  private readonly syy: Float64Array;
+  private fill = 0;
+  segments = 0;
+
+  /** stride: at least 2 (the used segments do not overlap), as replaySpectrumStride gives. */
+  constructor(
+    readonly segmentLength: number,
+    readonly sampleRate: number,
+    private readonly stride: number,
+    references: number,
+  ) {
+    if (!(stride >= 2)) throw new RangeError(`stride ${stride}: the multiple-coherence estimate takes segments that do not overlap (2 or more)`);
+    const N = segmentLength;
+    const K = (this.K = references);
+    this.fft = new FFT(N);
+    ({ window: this.window, power: this.windowPower } = periodicHann(N));
+    this.segX = Array.from({ length: K }, () => new Float64Array(N));
+    this.segY = new Float64Array(N);
+    this.frame = new Float64Array(N);
+    this.specX = Array.from({ length: K }, () => new Float64Array(2 * N));
+    this.specY = new Float64Array(2 * N);
+    const bins = N / 2 + 1;
+    this.sxxRe = new Float64Array(bins * K * K);
+    this.sxxIm = new Float64Array(bins * K * K);
+    this.sxyRe = new Float64Array(bins * K);
+    this.sxyIm = new Float64Array(bins * K);
+    this.syy = new Float64Array(bins);
+  }
+
+  /** Appends n samples of every reference and the measurement (non-finite samples count as 0). */
+  push(xs: readonly Float64Array[], y: Float64Array, n: number): void {
+    const N = this.segmentLength;
+    const period = (this.stride * N) / 2;
+    for (let i = 0; i < n; i++) {
+      if (this.fill < N) {
+        for (let k = 0; k < this.K; k++) {
+          const a = xs[k]![i]!;
+          this.segX[k]![this.fill] = a - a === 0 ? a : 0; // non-finite: 0
+        }
+        const b = y[i]!;
+        this.segY[this.fill] = b - b === 0 ? b : 0;
+        if (this.fill === N - 1) this.accumulate();
+      }
+      if (++this.fill === period) this.fill = 0;
+    }
+  }
+
+  private transform(seg: Float64Array, spec: Float64Array): void {
+    for (let i = 0; i < this.segmentLength; i++) this.frame[i] = seg[i]! * this.window[i]!;
+    this.fft.realTransform(spec, this.frame);
+  }
+
+  private accumulate(): void {
+    const { K } = this;
+    for (let k = 0; k < K; k++) this.transform(this.segX[k]!, this.specX[k]!);
+    this.transform(this.segY, this.specY);
+    const bins = this.segmentLength / 2 + 1;
+    for (let f = 0; f < bins; f++) {
+      const yr = this.specY[2 * f]!;
+      const yi = this.specY[2 * f + 1]!;
+      this.syy[f]! += yr * yr + yi * yi;
+      for (let a = 0; a < K; a++) {
+        const ar = this.specX[a]![2 * f]!;
+        const ai = this.specX[a]![2 * f + 1]!;
+        // conj(Xa) Y and conj(Xa) Xb
+        this.sxyRe[f * K + a]! += ar * yr + ai * yi;
+        this.sxyIm[f * K + a]! += ar * yi - ai * yr;
+        for (let b = 0; b < K; b++) {
+          const br = this.specX[b]![2 * f]!;
+          const bi = this.specX[b]![2 * f + 1]!;
+          this.sxxRe[(f * K + a) * K + b]! += ar * br + ai * bi;
+          this.sxxIm[(f * K + a) * K + b]! += ar * bi - ai * br;
+        }
+      }
+    }
+    this.segments++;
+  }
+
+  /** As WelchCross.result: frequencies, Syy, the multiple coherence per bin, the first reference's PSD. */
+  result(): { frequencies: Float64Array; syy: Float64Array; coherence: Float64Array; psdX: Float64Array } {
+    const { K } = this;
+    const bins = this.segmentLength / 2 + 1;
+    const first = new Float64Array(bins);
+    for (let f = 0; f < bins; f++) first[f] = this.sxxRe[f * K * K]!;
+    const { frequencies, psd: psdX } = oneSided(first, this.segmentLength, this.sampleRate, this.windowPower, this.segments);
+    const coherence = new Float64Array(bins);
+    const mRe = new Float64Array(K * (K + 1));
+    const mIm = new Float64Array(K * (K + 1));
+    for (let f = 0; f < bins; f++) {
+      // The augmented system [Sxx | Sxy], solved by Gaussian elimination with partial pivoting.
+      for (let a = 0; a < K; a++) {
+        for (let b = 0; b < K; b++) {
+          mRe[a * (K + 1) + b] = this.sxxRe[(f * K + a) * K + b]!;
+          mIm[a * (K + 1) + b] = this.sxxIm[(f * K + a) * K + b]!;
+        }
+        mRe[a * (K + 1) + K] = this.sxyRe[f * K + a]!;
+        mIm[a * (K + 1) + K] = this.sxyIm[f * K + a]!;
+      }
+      const z = solveComplex(mRe, mIm, K);
+      if (z === null || !(this.syy[f]! > 0)) continue;
+      // Sxy^H z, real for a Hermitian positive definite Sxx.
+      let num = 0;
+      for (let a = 0; a < K; a++) num += this.sxyRe[f * K + a]! * z.re[a]! + this.sxyIm[f * K + a]! * z.im[a]!;
+      coherence[f] = Math.max(0, Math.min(1, num / this.syy[f]!));
+    }
+    return { frequencies, syy: Float64Array.from(this.syy), coherence, psdX };
+  }
+}
+
+/** Solves the K x K complex system held as [A | b] (row-major, K + 1 columns); null when singular. */
+function solveComplex(re: Float64Array, im: Float64Array, K: number): { re: Float64Array; im: Float64Array } | null {
+  const W = K + 1;
+  let scale = 0;
+  for (let a = 0; a < K; a++) scale = Math.max(scale, Math.hypot(re[a * W + a]!, im[a * W + a]!));
+  if (!(scale > 0)) return null;
+  for (let c = 0; c < K; c++) {
+    let p = c;
+    for (let r = c + 1; r < K; r++) if (Math.hypot(re[r * W + c]!, im[r * W + c]!) > Math.hypot(re[p * W + c]!, im[p * W + c]!)) p = r;
+    const pr = re[p * W + c]!;
+    const pi = im[p * W + c]!;
+    const mag = pr * pr + pi * pi;
+    if (!(Math.sqrt(mag) > 1e-12 * scale)) return null;
+    if (p !== c) {
+      for (let j = 0; j < W; j++) {
+        [re[c * W + j], re[p * W + j]] = [re[p * W + j]!, re[c * W + j]!];
+        [im[c * W + j], im[p * W + j]] = [im[p * W + j]!, im[c * W + j]!];
+      }
+    }
+    for (let r = c + 1; r < K; r++) {
+      // factor = M[r][c] / M[c][c]
+      const fr = (re[r * W + c]! * pr + im[r * W + c]! * pi) / mag;
+      const fi = (im[r * W + c]! * pr - re[r * W + c]! * pi) / mag;
+      for (let j = c; j < W; j++) {
+        re[r * W + j] = re[r * W + j]! - (fr * re[c * W + j]! - fi * im[c * W + j]!);
+        im[r * W + j] = im[r * W + j]! - (fr * im[c * W + j]! + fi * re[c * W + j]!);
+      }
+    }
+  }
+  const zr = new Float64Array(K);
+  const zi = new Float64Array(K);
+  for (let c = K - 1; c >= 0; c--) {
+    let sr = re[c * W + K]!;
+    let si = im[c * W + K]!;
+    for (let j = c + 1; j < K; j++) {
+      sr -= re[c * W + j]! * zr[j]! - im[c * W + j]! * zi[j]!;
+      si -= re[c * W + j]! * zi[j]! + im[c * W + j]! * zr[j]!;
+    }
+    const dr = re[c * W + c]!;
+    const di = im[c * W + c]!;
+    const mag = dr * dr + di * di;
+    zr[c] = (sr * dr + si * di) / mag;
+    zi[c] = (si * dr - sr * di) / mag;
+  }
+  return { re: zr, im: zi };
+}
+
 /** Octave bands below Nyquist: centres 1 kHz x 2^k from 31.25 Hz (base 2; ISO 266 rounds the nominal 31.5). */
 export function octaveBands(sampleRate: number): { centreHz: number; lowHz: number; highHz: number }[] {
   const out = [];
@@ -226,7 +406,7 @@ export function octaveBands(sampleRate: number): { centreHz: number; lowHz: numb
 }
 
 /** Bound on the cancellation a linear filter can reach in a band: -10 log10(sum Syy (1 - C) / sum Syy). */
-export function bandBounds(r: ReturnType<WelchCross['result']>, sampleRate: number) {
+export function bandBounds(r: ReturnType<WelchCross['result'] | WelchMultiCross['result']>, sampleRate: number) {
   return octaveBands(sampleRate).map((b) => {
     let p = 0;
     let residual = 0;

@@ -1,6 +1,6 @@
 import { renameSync, writeFileSync } from 'node:fs';
 import { join } from 'node:path';
-import { WelchCross, bandBounds, replaySpectrumStride, spectrumSegment } from '../analysis/welch.js';
+import { WelchMultiCross, bandBounds, replaySpectrumStride, spectrumSegment } from '../analysis/welch.js';
 import { measurementChannels, referenceChannels, type Config } from '../config/schema.js';
 import { weightLimitOf } from '../dsp/kernels.js';
 import { INPUT_LIMIT } from '../dsp/level.js';
@@ -139,9 +139,9 @@ export function replay(opts: ReplayOptions): ReplayResult {
     const segment = spectrumSegment(rate);
     // Spectra from segments that do not overlap, strided to leave a few hundred of them
     // (replaySpectrumStride; README "summary.json", bands). One per measurement channel: the
-    // coherence bound is the reference's with that channel.
+    // coherence bound is the references' (their multiple coherence) with that channel.
     const stride = replaySpectrumStride(range.to - range.from, segment);
-    const crosses = measured.map(() => new WelchCross(segment, rate, stride));
+    const crosses = measured.map(() => new WelchMultiCross(segment, rate, stride, refs.length));
     const truthReader = opts.truth === undefined ? null : WavReader.open(opts.truth);
     if (truthReader !== null) {
       if (truthReader.format.sampleRate !== rate || truthReader.frames < range.to) {
@@ -186,7 +186,7 @@ export function replay(opts: ReplayOptions): ReplayResult {
     while (done < total) {
       const n = reader.read(channels, [ref.subarray(0, Math.min(block, total - done)), ...refs.slice(1), ...des]);
       if (n === 0) break;
-      for (let c = 0; c < crosses.length; c++) crosses[c]!.push(ref, des[c]!, n);
+      for (let c = 0; c < crosses.length; c++) crosses[c]!.push(refs, des[c]!, n);
       if (truthReader !== null) {
         for (const t of truths) t.fill(0);
         truthReader.read(truthChannels, truths.map((t) => t.subarray(0, n)));
