@@ -65,6 +65,23 @@ describe('several measurement channels (input.desiredChannels)', () => {
     expect(rig.weights.clean).toHaveLength(2 * 64); // the motor's filter, then the pump's
   });
 
+  it('analyze --channel picks the measurement channel the coherence and the leak are for', () => {
+    const a1 = cli(['analyze', rec, '--config', two, '--out', join(dir, 'an1')]);
+    const a2 = cli(['analyze', rec, '--config', two, '--channel', '2', '--out', join(dir, 'an2')]);
+    expect(a1.status, a1.stderr).toBe(0);
+    expect(a2.status, a2.stderr).toBe(0);
+    const j1 = JSON.parse(readFileSync(join(dir, 'an1', 'analysis.json'), 'utf8'));
+    const j2 = JSON.parse(readFileSync(join(dir, 'an2', 'analysis.json'), 'utf8'));
+    expect([j1.channel, j2.channel]).toEqual([1, 2]);
+    // The same reference (its spectrum over the whole selection), another measurement (the
+    // coherence; and the fault windows, found on the measurement, so R may differ a little).
+    expect(j2.spectrum.psd).toEqual(j1.spectrum.psd);
+    expect(j2.coherence).not.toEqual(j1.coherence);
+    const bad = cli(['analyze', rec, '--config', two, '--channel', '3', '--out', join(dir, 'an3')]);
+    expect(bad.status).toBe(2);
+    expect(bad.stderr.trim()).toMatch(/--channel "3" is not allowed; allowed: a measurement channel of the config \(1, 2\) \[TW_ERR_USAGE\]$/);
+  });
+
   it('refuses the reference among them, a channel the file lacks, and a freeze of several', () => {
     writeFileSync(join(dir, 'self.yaml'), 'input:\n  desiredChannels: [1, 0]\n');
     const a = cli(['replay', rec, '--config', join(dir, 'self.yaml'), '--out', join(dir, 'x')]);

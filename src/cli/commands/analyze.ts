@@ -94,7 +94,7 @@ function table(a: Selection['analysis'], s: Selection): string {
 
 export const analyze: Command = {
   summary: "analyze a recording's reference: spectrum, eigenvalues, unexcited bands, step bounds, leak",
-  usage: `Usage: tapwarden analyze REC.wav [--taps N] [--config FILE] [--threshold-db DB]
+  usage: `Usage: tapwarden analyze REC.wav [--taps N] [--config FILE] [--channel N] [--threshold-db DB]
                          [--from SECONDS] [--to SECONDS] [--out DIR]
 
 Excitation analysis of the reference channel for an N-tap filter: Welch power spectrum; the
@@ -113,6 +113,8 @@ DIR/report.html.
 Options:
   --taps N           filter length (default: filter.taps of the config), at most ${MAX_TAPS}
   --config FILE      YAML overriding config/default.yaml (channels, window, leak, algorithm)
+  --channel N        the measurement channel the coherence and the leak are for (one of the
+                     config's; default: its first). The reference is the config's first.
   --threshold-db DB  what counts as unexcited, dB below the peak (default -60)
   --from SECONDS     start this far into the recording (default 0)
   --to SECONDS       stop here (default: the end)
@@ -121,6 +123,7 @@ Options:
   options: {
     taps: { type: 'string' },
     config: { type: 'string' },
+    channel: { type: 'string' },
     'threshold-db': { type: 'string' },
     from: { type: 'string' },
     to: { type: 'string' },
@@ -140,8 +143,13 @@ Options:
       throw new TapwardenError('TW_ERR_USAGE', { detail: `analyze: --threshold-db ${quote(values['threshold-db'])} is not allowed; allowed: a negative number of dB` });
     }
     const range = { fromSeconds: seconds('analyze', 'from', values['from']), toSeconds: seconds('analyze', 'to', values['to']) };
+    const measured = measurementChannels(config);
+    const channel = values['channel'] === undefined ? measured[0]! : Number(values['channel']);
+    if (!measured.includes(channel)) {
+      throw new TapwardenError('TW_ERR_USAGE', { detail: `analyze: --channel ${quote(values['channel'])} is not allowed; allowed: a measurement channel of the config (${measured.join(', ')})` });
+    }
     const outDir = values['out'] as string;
-    const sel = select(recording, config, taps, thresholdDb, range);
+    const sel = select(recording, config, channel, taps, thresholdDb, range);
     for (const w of sel.warnings) process.stderr.write(warningLine('TW_WARN_INPUT', w) + '\n');
     const a = sel.analysis;
     makeDirectory(outDir);
@@ -169,6 +177,7 @@ Options:
       range: { fromSeconds: sel.fromSeconds, toSeconds: sel.fromSeconds + sel.durationSeconds },
       config: configFile ?? DEFAULT_CONFIG_PATH,
       warnings: sel.warnings,
+      channel,
       ...a,
       coherence: sel.coherence,
       spectrum: { frequencies: Array.from(sel.spectrum.frequencies), psd: Array.from(sel.spectrum.psd) },
@@ -182,7 +191,7 @@ Options:
  * Two passes over the selection: the spectrum and each window's desired power and faults, then
  * the correlations over the windows kept.
  */
-function select(recording: string, config: ReturnType<typeof loadConfig>, taps: number, thresholdDb: number, seconds: { fromSeconds?: number; toSeconds?: number }): Selection {
+function select(recording: string, config: ReturnType<typeof loadConfig>, channel: number, taps: number, thresholdDb: number, seconds: { fromSeconds?: number; toSeconds?: number }): Selection {
   const reader = WavReader.open(recording);
   try {
     checkChannels(reader.format.channels, config, recording);
@@ -195,8 +204,8 @@ function select(recording: string, config: ReturnType<typeof loadConfig>, taps: 
     const psd = new WelchPsd(spectrumSegment(rate), rate);
     const x = new Float64Array(win);
     const d = new Float64Array(win);
-    // With several references or measurement channels, the first of each is analyzed (README "analyze").
-    const channels = [referenceChannels(config)[0]!, measurementChannels(config)[0]!];
+    // The first reference, and the measurement channel asked for (README "analyze").
+    const channels = [referenceChannels(config)[0]!, channel];
     const median = new DbHistogram();
     let referenceEnergy = 0;
     reader.seek(range.from);
