@@ -114,7 +114,8 @@ describe('captured episodes', () => {
       const r = await bad.get('/api/control/mark', { method: 'POST', headers: { authorization: `Bearer ${TOKEN}` } });
       expect(r.status).toBe(200);
       await until(async () => (await bad.metric('tapwarden_capture_write_failures_total')) === 1, 10_000, 'the failure counted');
-      expect(bad.logs.some((l) => String(l['msg']).startsWith('episode not captured: ') && l['code'] === 'TW_ERR_OUTPUT_WRITE')).toBe(true);
+      // The log line is written after the count (the log is asynchronous): wait for it.
+      await bad.logged((l) => String(l['msg']).startsWith('episode not captured: ') && l['code'] === 'TW_ERR_OUTPUT_WRITE', 10_000);
       expect((await bad.get('/readyz')).status).toBe(200);
     } finally {
       await bad.stop();
