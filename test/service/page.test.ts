@@ -53,8 +53,11 @@ describe('the live page', () => {
     // Switching to channel 2 shows its own windows.
     await page.selectOption('#channel', '2');
     await page.waitForFunction(() => document.querySelectorAll('#decisions tr').length > 0);
-    const shownCancellation = await page.evaluate(() => (window as any).tapwardenLive.plots[0].data[2].at(-1));
-    const ch2 = await page.evaluate(() => (window as any).tapwardenLive.channels.get(2).cC.at(-1));
+    // Read in one evaluation, so that no new window lands between the two reads.
+    const [shownCancellation, ch2] = await page.evaluate(() => {
+      const live = (window as any).tapwardenLive;
+      return [live.plots[0].data[2].at(-1), live.channels.get(2).cC.at(-1)];
+    });
     expect(shownCancellation).toBe(ch2);
     // Hovering the cancellation plot names a window's outcome.
     const box = (await page.locator('#plot-cancel .u-over').boundingBox())!;
