@@ -44,6 +44,8 @@ describe('the live page', () => {
     page.on('request', (r) => !r.url().startsWith(s1.base) && !r.url().startsWith(s1.base.replace('http', 'ws')) && outside++);
     await page.goto(s1.base + '/');
     await page.waitForFunction(() => Number(document.getElementById('received')!.textContent) >= 4, null, { timeout: 30_000 });
+    // The page knows its channels once its first GET /api/status answers (it may come after the feed's first windows).
+    await page.waitForFunction(() => document.querySelectorAll('#channel option').length === 2, null, { timeout: 10_000 });
     expect(await page.locator('#link').textContent()).toBe('connected');
     expect(await page.locator('#decisions tr').count()).toBeGreaterThan(0);
     expect(await page.evaluate(() => (window as any).tapwardenLive.plots.length)).toBe(4);
