@@ -144,7 +144,7 @@ describe('serve with several measurement channels', () => {
       if (m.type === 'status') statusChannels = m.channels!.map((c) => c.channel);
     });
     try {
-      await until(() => windows.size >= 6, 20_000, 'six windows on the feed');
+      await until(() => windows.size >= 6 && statusChannels.length > 0, 20_000, 'six windows and a status message on the feed');
       // The first window seen may have been half over when the client connected.
       const whole = [...windows.entries()].slice(1, -1);
       for (const [, chs] of whole) expect(chs).toEqual([2, 1]);
