@@ -129,11 +129,9 @@ export class WelchCross {
   private fill = 0;
   segments = 0;
 
-  /** stride as in WelchPsd. */
   constructor(
     readonly segmentLength: number,
     readonly sampleRate: number,
-    private readonly stride = 1,
   ) {
     const N = segmentLength;
     this.fft = new FFT(N);
@@ -153,21 +151,6 @@ export class WelchCross {
   /** Appends n samples of both signals (non-finite samples count as 0). */
   push(x: Float64Array, y: Float64Array, n: number): void {
     const N = this.segmentLength;
-    if (this.stride > 1) {
-      // Strided segments do not overlap: a sample is kept only where a used segment lies.
-      const period = (this.stride * N) / 2;
-      for (let i = 0; i < n; i++) {
-        if (this.fill < N) {
-          const a = x[i]!;
-          const b = y[i]!;
-          this.segX[this.fill] = a - a === 0 ? a : 0; // non-finite: 0
-          this.segY[this.fill] = b - b === 0 ? b : 0;
-          if (this.fill === N - 1) this.accumulate();
-        }
-        if (++this.fill === period) this.fill = 0;
-      }
-      return;
-    }
     for (let i = 0; i < n; i++) {
       const a = x[i]!;
       const b = y[i]!;
