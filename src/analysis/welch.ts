@@ -1,4 +1,5 @@
 import FFT from 'fft.js';
+import { LuDecomposition, Matrix } from 'ml-matrix';
 
 /** Segments replay's spectra average at least, where the recording holds that many. */
 export const REPLAY_SPECTRUM_SEGMENTS = 128;
@@ -202,25 +203,26 @@ export class WelchCross {
 }
 
 /**
- * The multiple coherence of a measurement with K references over strided, non-overlapping Welch
- * segments (as replay's spectra): gamma^2(f) = Sxy^H Sxx^-1 Sxy / Syy, Sxx the references' K x K
- * cross-spectral matrix and Sxy their cross-spectra with the measurement (Bendat & Piersol,
- * Random Data, 4th ed., multiple-input systems, chapter 7). 1 - gamma^2 is the smallest share of
- * the measurement's power at f that linear filters of all K references together can leave, so it
- * bounds a multiple-input canceller as the ordinary coherence bounds a one-reference one; with
- * one reference it is the ordinary coherence.
+ * The multiple coherence of each of M measurements with K references over strided,
+ * non-overlapping Welch segments (as replay's spectra): gamma^2(f) = Sxy^H Sxx^-1 Sxy / Syy, Sxx
+ * the references' K x K cross-spectral matrix and Sxy their cross-spectra with the measurement
+ * (Bendat & Piersol, Random Data, 4th ed., multiple-input systems, chapter 7). 1 - gamma^2 is the
+ * smallest share of the measurement's power at f that linear filters of all K references
+ * together can leave, so it bounds a multiple-input canceller as the ordinary coherence bounds a
+ * one-reference one; with one reference it is the ordinary coherence. The references' transforms
+ * and Sxx are formed once per segment for all the measurements.
  */
 export class WelchMultiCross {
   private readonly fft: FFT;
   private readonly window: Float64Array;
   private readonly windowPower: number;
   private readonly K: number;
-  private readonly segX: Float64Array[];
-  private readonly segY: Float64Array;
+  private readonly M: number;
+  /** Segment samples and spectra: the K references, then the M measurements. */
+  private readonly seg: Float64Array[];
+  private readonly spec: Float64Array[];
   private readonly frame: Float64Array;
-  private readonly specX: Float64Array[];
-  private readonly specY: Float64Array;
-  /** Per bin: Sxx (K x K, row-major, re and im apart), Sxy (K), Syy. */
+  /** Per bin: Sxx (K x K, row-major, re and im apart); per measurement and bin: Sxy (K), Syy. */
   private readonly sxxRe: Float64Array;
   private readonly sxxIm: Float64Array;
   private readonly sxyRe: Float64Array;
@@ -235,150 +237,116 @@ export class WelchMultiCross {
     readonly sampleRate: number,
     private readonly stride: number,
     references: number,
+    measurements = 1,
   ) {
     if (!(stride >= 2)) throw new RangeError(`stride ${stride}: the multiple-coherence estimate takes segments that do not overlap (2 or more)`);
     const N = segmentLength;
     const K = (this.K = references);
+    const M = (this.M = measurements);
     this.fft = new FFT(N);
     ({ window: this.window, power: this.windowPower } = periodicHann(N));
-    this.segX = Array.from({ length: K }, () => new Float64Array(N));
-    this.segY = new Float64Array(N);
+    this.seg = Array.from({ length: K + M }, () => new Float64Array(N));
+    this.spec = Array.from({ length: K + M }, () => new Float64Array(2 * N));
     this.frame = new Float64Array(N);
-    this.specX = Array.from({ length: K }, () => new Float64Array(2 * N));
-    this.specY = new Float64Array(2 * N);
     const bins = N / 2 + 1;
     this.sxxRe = new Float64Array(bins * K * K);
     this.sxxIm = new Float64Array(bins * K * K);
-    this.sxyRe = new Float64Array(bins * K);
-    this.sxyIm = new Float64Array(bins * K);
-    this.syy = new Float64Array(bins);
+    this.sxyRe = new Float64Array(M * bins * K);
+    this.sxyIm = new Float64Array(M * bins * K);
+    this.syy = new Float64Array(M * bins);
   }
 
-  /** Appends n samples of every reference and the measurement (non-finite samples count as 0). */
-  push(xs: readonly Float64Array[], y: Float64Array, n: number): void {
+  /** Appends n samples of every reference and every measurement (non-finite samples count as 0). */
+  push(xs: readonly Float64Array[], ys: readonly Float64Array[], n: number): void {
+    const { K, M, seg } = this;
     const N = this.segmentLength;
     const period = (this.stride * N) / 2;
     for (let i = 0; i < n; i++) {
       if (this.fill < N) {
-        for (let k = 0; k < this.K; k++) {
-          const a = xs[k]![i]!;
-          this.segX[k]![this.fill] = a - a === 0 ? a : 0; // non-finite: 0
+        for (let k = 0; k < K + M; k++) {
+          const a = (k < K ? xs[k]! : ys[k - K]!)[i]!;
+          seg[k]![this.fill] = a - a === 0 ? a : 0; // non-finite: 0
         }
-        const b = y[i]!;
-        this.segY[this.fill] = b - b === 0 ? b : 0;
         if (this.fill === N - 1) this.accumulate();
       }
       if (++this.fill === period) this.fill = 0;
     }
   }
 
-  private transform(seg: Float64Array, spec: Float64Array): void {
-    for (let i = 0; i < this.segmentLength; i++) this.frame[i] = seg[i]! * this.window[i]!;
-    this.fft.realTransform(spec, this.frame);
-  }
-
   private accumulate(): void {
-    const { K } = this;
-    for (let k = 0; k < K; k++) this.transform(this.segX[k]!, this.specX[k]!);
-    this.transform(this.segY, this.specY);
-    const bins = this.segmentLength / 2 + 1;
+    const { K, M, spec } = this;
+    const N = this.segmentLength;
+    for (let k = 0; k < K + M; k++) {
+      const seg = this.seg[k]!;
+      for (let i = 0; i < N; i++) this.frame[i] = seg[i]! * this.window[i]!;
+      this.fft.realTransform(spec[k]!, this.frame);
+    }
+    const bins = N / 2 + 1;
     for (let f = 0; f < bins; f++) {
-      const yr = this.specY[2 * f]!;
-      const yi = this.specY[2 * f + 1]!;
-      this.syy[f]! += yr * yr + yi * yi;
       for (let a = 0; a < K; a++) {
-        const ar = this.specX[a]![2 * f]!;
-        const ai = this.specX[a]![2 * f + 1]!;
-        // conj(Xa) Y and conj(Xa) Xb
-        this.sxyRe[f * K + a]! += ar * yr + ai * yi;
-        this.sxyIm[f * K + a]! += ar * yi - ai * yr;
+        const ar = spec[a]![2 * f]!;
+        const ai = spec[a]![2 * f + 1]!;
+        // conj(Xa) Xb
         for (let b = 0; b < K; b++) {
-          const br = this.specX[b]![2 * f]!;
-          const bi = this.specX[b]![2 * f + 1]!;
+          const br = spec[b]![2 * f]!;
+          const bi = spec[b]![2 * f + 1]!;
           this.sxxRe[(f * K + a) * K + b]! += ar * br + ai * bi;
           this.sxxIm[(f * K + a) * K + b]! += ar * bi - ai * br;
         }
+        // conj(Xa) Y, for every measurement
+        for (let m = 0; m < M; m++) {
+          const yr = spec[K + m]![2 * f]!;
+          const yi = spec[K + m]![2 * f + 1]!;
+          this.sxyRe[(m * bins + f) * K + a]! += ar * yr + ai * yi;
+          this.sxyIm[(m * bins + f) * K + a]! += ar * yi - ai * yr;
+        }
+      }
+      for (let m = 0; m < M; m++) {
+        const yr = spec[K + m]![2 * f]!;
+        const yi = spec[K + m]![2 * f + 1]!;
+        this.syy[m * bins + f]! += yr * yr + yi * yi;
       }
     }
     this.segments++;
   }
 
-  /** As WelchCross.result: frequencies, Syy, the multiple coherence per bin, the first reference's PSD. */
-  result(): { frequencies: Float64Array; syy: Float64Array; coherence: Float64Array; psdX: Float64Array } {
+  /** As WelchCross.result, for measurement m: frequencies, Syy, the multiple coherence per bin, the first reference's PSD. */
+  result(m = 0): { frequencies: Float64Array; syy: Float64Array; coherence: Float64Array; psdX: Float64Array } {
     const { K } = this;
     const bins = this.segmentLength / 2 + 1;
     const first = new Float64Array(bins);
     for (let f = 0; f < bins; f++) first[f] = this.sxxRe[f * K * K]!;
     const { frequencies, psd: psdX } = oneSided(first, this.segmentLength, this.sampleRate, this.windowPower, this.segments);
+    const syy = this.syy.slice(m * bins, (m + 1) * bins);
     const coherence = new Float64Array(bins);
-    const mRe = new Float64Array(K * (K + 1));
-    const mIm = new Float64Array(K * (K + 1));
     for (let f = 0; f < bins; f++) {
-      // The augmented system [Sxx | Sxy], solved by Gaussian elimination with partial pivoting.
-      for (let a = 0; a < K; a++) {
-        for (let b = 0; b < K; b++) {
-          mRe[a * (K + 1) + b] = this.sxxRe[(f * K + a) * K + b]!;
-          mIm[a * (K + 1) + b] = this.sxxIm[(f * K + a) * K + b]!;
+      if (!(syy[f]! > 0)) continue;
+      // Sxx z = Sxy as the real system [[Re, -Im], [Im, Re]] [Re z; Im z] = [Re Sxy; Im Sxy].
+      const A = new Matrix(2 * K, 2 * K);
+      const b = new Matrix(2 * K, 1);
+      for (let i = 0; i < K; i++) {
+        for (let j = 0; j < K; j++) {
+          const re = this.sxxRe[(f * K + i) * K + j]!;
+          const im = this.sxxIm[(f * K + i) * K + j]!;
+          A.set(i, j, re);
+          A.set(i, K + j, -im);
+          A.set(K + i, j, im);
+          A.set(K + i, K + j, re);
         }
-        mRe[a * (K + 1) + K] = this.sxyRe[f * K + a]!;
-        mIm[a * (K + 1) + K] = this.sxyIm[f * K + a]!;
+        b.set(i, 0, this.sxyRe[(m * bins + f) * K + i]!);
+        b.set(K + i, 0, this.sxyIm[(m * bins + f) * K + i]!);
       }
-      const z = solveComplex(mRe, mIm, K);
-      if (z === null || !(this.syy[f]! > 0)) continue;
+      // A singular Sxx (a bin no reference excites) explains nothing.
+      const lu = new LuDecomposition(A);
+      if (lu.isSingular()) continue;
+      const z = lu.solve(b);
       // Sxy^H z, real for a Hermitian positive definite Sxx.
       let num = 0;
-      for (let a = 0; a < K; a++) num += this.sxyRe[f * K + a]! * z.re[a]! + this.sxyIm[f * K + a]! * z.im[a]!;
-      coherence[f] = Math.max(0, Math.min(1, num / this.syy[f]!));
+      for (let i = 0; i < K; i++) num += b.get(i, 0) * z.get(i, 0) + b.get(K + i, 0) * z.get(K + i, 0);
+      coherence[f] = num > 0 ? Math.min(1, num / syy[f]!) : 0;
     }
-    return { frequencies, syy: Float64Array.from(this.syy), coherence, psdX };
+    return { frequencies, syy, coherence, psdX };
   }
-}
-
-/** Solves the K x K complex system held as [A | b] (row-major, K + 1 columns); null when singular. */
-function solveComplex(re: Float64Array, im: Float64Array, K: number): { re: Float64Array; im: Float64Array } | null {
-  const W = K + 1;
-  let scale = 0;
-  for (let a = 0; a < K; a++) scale = Math.max(scale, Math.hypot(re[a * W + a]!, im[a * W + a]!));
-  if (!(scale > 0)) return null;
-  for (let c = 0; c < K; c++) {
-    let p = c;
-    for (let r = c + 1; r < K; r++) if (Math.hypot(re[r * W + c]!, im[r * W + c]!) > Math.hypot(re[p * W + c]!, im[p * W + c]!)) p = r;
-    const pr = re[p * W + c]!;
-    const pi = im[p * W + c]!;
-    const mag = pr * pr + pi * pi;
-    if (!(Math.sqrt(mag) > 1e-12 * scale)) return null;
-    if (p !== c) {
-      for (let j = 0; j < W; j++) {
-        [re[c * W + j], re[p * W + j]] = [re[p * W + j]!, re[c * W + j]!];
-        [im[c * W + j], im[p * W + j]] = [im[p * W + j]!, im[c * W + j]!];
-      }
-    }
-    for (let r = c + 1; r < K; r++) {
-      // factor = M[r][c] / M[c][c]
-      const fr = (re[r * W + c]! * pr + im[r * W + c]! * pi) / mag;
-      const fi = (im[r * W + c]! * pr - re[r * W + c]! * pi) / mag;
-      for (let j = c; j < W; j++) {
-        re[r * W + j] = re[r * W + j]! - (fr * re[c * W + j]! - fi * im[c * W + j]!);
-        im[r * W + j] = im[r * W + j]! - (fr * im[c * W + j]! + fi * re[c * W + j]!);
-      }
-    }
-  }
-  const zr = new Float64Array(K);
-  const zi = new Float64Array(K);
-  for (let c = K - 1; c >= 0; c--) {
-    let sr = re[c * W + K]!;
-    let si = im[c * W + K]!;
-    for (let j = c + 1; j < K; j++) {
-      sr -= re[c * W + j]! * zr[j]! - im[c * W + j]! * zi[j]!;
-      si -= re[c * W + j]! * zi[j]! + im[c * W + j]! * zr[j]!;
-    }
-    const dr = re[c * W + c]!;
-    const di = im[c * W + c]!;
-    const mag = dr * dr + di * di;
-    zr[c] = (sr * dr + si * di) / mag;
-    zi[c] = (si * dr - sr * di) / mag;
-  }
-  return { re: zr, im: zi };
 }
 
 /** Octave bands below Nyquist: centres 1 kHz x 2^k from 31.25 Hz (base 2; ISO 266 rounds the nominal 31.5). */

@@ -138,10 +138,10 @@ export function replay(opts: ReplayOptions): ReplayResult {
     const des = measured.map(() => new Float64Array(block));
     const segment = spectrumSegment(rate);
     // Spectra from segments that do not overlap, strided to leave a few hundred of them
-    // (replaySpectrumStride; README "summary.json", bands). One per measurement channel: the
+    // (replaySpectrumStride; README "summary.json", bands). Per measurement channel, the
     // coherence bound is the references' (their multiple coherence) with that channel.
     const stride = replaySpectrumStride(range.to - range.from, segment);
-    const crosses = measured.map(() => new WelchMultiCross(segment, rate, stride, refs.length));
+    const cross = new WelchMultiCross(segment, rate, stride, refs.length, measured.length);
     const truthReader = opts.truth === undefined ? null : WavReader.open(opts.truth);
     if (truthReader !== null) {
       if (truthReader.format.sampleRate !== rate || truthReader.frames < range.to) {
@@ -186,7 +186,7 @@ export function replay(opts: ReplayOptions): ReplayResult {
     while (done < total) {
       const n = reader.read(channels, [ref.subarray(0, Math.min(block, total - done)), ...refs.slice(1), ...des]);
       if (n === 0) break;
-      for (let c = 0; c < crosses.length; c++) crosses[c]!.push(refs, des[c]!, n);
+      cross.push(refs, des, n);
       if (truthReader !== null) {
         for (const t of truths) t.fill(0);
         truthReader.read(truthChannels, truths.map((t) => t.subarray(0, n)));
@@ -204,7 +204,7 @@ export function replay(opts: ReplayOptions): ReplayResult {
       r.log?.close();
     }
     truthReader?.close();
-    const crossResults = crosses.map((c) => c.result());
+    const crossResults = measured.map((_, ci) => cross.result(ci));
     const bounds = crossResults.map((c) => bandBounds(c, rate));
     const elapsedSeconds = Number(process.hrtime.bigint() - started) / 1e9;
     const summaries = runs.map((r) => {

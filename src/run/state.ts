@@ -101,15 +101,31 @@ function walk(obj: object, path: string, visit: Visitor, seen: Set<object>, rest
   }
 }
 
+const coversWhole = (a: TypedArray) => a.byteOffset === 0 && a.byteLength === a.buffer.byteLength;
+
+/**
+ * The buffers some field views whole (a WebAssembly memory's byte view): its other views (the
+ * weights, the sample buffers) are taken and put back with it, not a second time.
+ */
+function wholeBuffers(root: object): Set<ArrayBufferLike> {
+  const whole = new Set<ArrayBufferLike>();
+  walk(root, '', { array: (_p, a) => void (coversWhole(a) && whole.add(a.buffer)), scalar: (_p, v) => v }, new Set(), false);
+  return whole;
+}
+
 /** The state of `root` (a run: its engine, kernels and forecaster). */
 export function captureState(root: object): RunState {
   const arrays: RunState['arrays'] = [];
   const scalars: RunState['scalars'] = [];
+  const whole = wholeBuffers(root);
   walk(
     root,
     '',
     {
-      array: (_p, a) => arrays.push({ kind: a.constructor.name, length: a.length, bytes: new Uint8Array(a.buffer, a.byteOffset, a.byteLength).slice() }),
+      array: (_p, a) => {
+        if (!coversWhole(a) && whole.has(a.buffer)) return;
+        arrays.push({ kind: a.constructor.name, length: a.length, bytes: new Uint8Array(a.buffer, a.byteOffset, a.byteLength).slice() });
+      },
       scalar: (_p, v) => {
         scalars.push(encodeScalar(v));
         return v;
@@ -126,11 +142,13 @@ export function restoreState(root: object, state: RunState): void {
   if (state.format !== STATE_FORMAT) throw new Error(`the state is not ${STATE_FORMAT}`);
   let ai = 0;
   let si = 0;
+  const whole = wholeBuffers(root);
   walk(
     root,
     '',
     {
       array: (path, a) => {
+        if (!coversWhole(a) && whole.has(a.buffer)) return;
         const s = state.arrays[ai++];
         if (s === undefined || s.kind !== a.constructor.name || s.length !== a.length) {
           throw new Error(`the state does not fit this run at ${path.slice(1)} (${a.constructor.name}[${a.length}] here, ${s ? `${s.kind}[${s.length}]` : 'nothing'} in the state)`);

@@ -89,10 +89,10 @@ export class CaptureRecorder {
   afterBlock(refs: readonly Float64Array[], des: readonly Float64Array[], n: number): void {
     const at = this.now;
     const { size } = this;
-    const cols = [...refs, ...des];
+    const K = refs.length;
     for (let c = 0; c < this.used.length; c++) {
       const ring = this.rings[this.used[c]!]!;
-      const src = cols[c]!;
+      const src = c < K ? refs[c]! : des[c - K]!;
       for (let i = 0, p = at % size; i < n; i++, p = p + 1 === size ? 0 : p + 1) ring[p] = src[i]!;
     }
     this.now = at + n;
